@@ -1,0 +1,1 @@
+"""apparatus feature."""

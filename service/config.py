@@ -1,0 +1,66 @@
+"""Settings: the one place that reads the environment (and an optional .env file)."""
+
+from __future__ import annotations
+
+import secrets
+from functools import lru_cache
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field, model_validator
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+PLACEHOLDER_SECRETS = frozenset({"", "changeme", "change-me", "secret", "dev", "development"})
+VAR_DIR = Path("var")
+
+
+class Settings(BaseSettings):
+    """Service settings; environment variables override the optional `.env` file."""
+
+    model_config = SettingsConfigDict(env_file=".env", env_file_encoding="utf-8", extra="ignore")
+
+    environment: Literal["development", "test", "production"] = "development"
+    database_url: str = Field(default_factory=lambda: f"sqlite:///{VAR_DIR / 'seepline.db'}")
+    secret_key: str = ""
+    host: str = "127.0.0.1"
+    port: int = Field(default=8000, ge=1, le=65535)
+    lab_name: str = "Seepline Soil Laboratory"
+    public_base_url: str = "http://127.0.0.1:8000"
+    # Argon2 work factors: the library defaults in production, cheaper in tests.
+    argon2_time_cost: int = Field(default=3, ge=1)
+    argon2_memory_cost_kib: int = Field(default=65536, ge=8)
+    session_hours: int = Field(default=12, ge=1)
+    max_body_bytes: int = Field(default=5 * 1024 * 1024, ge=1024)
+
+    @model_validator(mode="after")
+    def _secret_key_is_real(self) -> Settings:
+        if self.secret_key.strip().lower() in PLACEHOLDER_SECRETS or len(self.secret_key) < 16:
+            if self.environment == "production":
+                raise ValueError(
+                    "SECRET_KEY is unset or a placeholder; production needs a random value of "
+                    "at least 16 characters (for example: python -c "
+                    "'import secrets; print(secrets.token_urlsafe(32))')"
+                )
+            self.secret_key = _development_secret()
+        return self
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.database_url.startswith("sqlite")
+
+
+def _development_secret() -> str:
+    """Generate a secret once into ./var/ so development sessions survive restarts."""
+    path = VAR_DIR / "secret_key"
+    if path.exists():
+        return path.read_text().strip()
+    VAR_DIR.mkdir(parents=True, exist_ok=True)
+    key = secrets.token_urlsafe(32)
+    path.write_text(key)
+    path.chmod(0o600)
+    return key
+
+
+@lru_cache
+def get_settings() -> Settings:
+    return Settings()

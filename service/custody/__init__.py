@@ -1,0 +1,1 @@
+"""custody feature."""

@@ -1,0 +1,1 @@
+"""Idempotent writes: a retried request with the same key gets the first answer again."""

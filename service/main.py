@@ -1,0 +1,80 @@
+"""Application factory: lifespan, routers, exception handlers and static files."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+import sqlalchemy as sa
+from fastapi import FastAPI, Request
+from fastapi.responses import JSONResponse
+from fastapi.staticfiles import StaticFiles
+
+from service import __version__
+from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
+from service.errors import ServiceError
+
+
+@asynccontextmanager
+async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+    app.state.migration_revision = require_migrated(get_engine())
+    yield
+
+
+def create_app() -> FastAPI:
+    app = FastAPI(
+        title="Seepline",
+        version=__version__,
+        summary="System of record for laboratory hydraulic conductivity testing of soils.",
+        lifespan=lifespan,
+    )
+    app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
+    _add_routes(app)
+    app.add_exception_handler(ServiceError, _service_error)
+    return app
+
+
+def _add_routes(app: FastAPI) -> None:
+    import importlib
+
+    # The reduction route is written alongside; include it once it exists.
+    try:
+        reductions = importlib.import_module("service.api.reductions")
+        app.include_router(reductions.router)
+    except ModuleNotFoundError:
+        pass
+
+    @app.get("/healthz", tags=["operations"])
+    def healthz() -> JSONResponse:
+        """Database reachability and the migration revision it is at."""
+        try:
+            revision = current_revision(get_engine())
+            with get_engine().connect() as connection:
+                connection.execute(sa.text("SELECT 1"))
+        except sa.exc.SQLAlchemyError as exc:
+            body: dict[str, Any] = {"status": "unavailable", "database": "unreachable"}
+            body["error"] = type(exc).__name__
+            return JSONResponse(body, status_code=503)
+        head = head_revision()
+        ok = revision == head
+        return JSONResponse(
+            {
+                "status": "ok" if ok else "migration_needed",
+                "database": "reachable",
+                "migration_revision": revision,
+                "expected_revision": head,
+                "version": __version__,
+            },
+            status_code=200 if ok else 503,
+        )
+
+
+async def _service_error(_request: Request, exc: Exception) -> JSONResponse:
+    assert isinstance(exc, ServiceError)
+    if isinstance(exc.detail, list) and exc.status_code == 422:
+        return JSONResponse({"detail": exc.detail}, status_code=422)
+    body: dict[str, Any] = {"error": exc.code, "detail": exc.message}
+    if exc.detail is not None:
+        body["context"] = exc.detail
+    return JSONResponse(body, status_code=exc.status_code)

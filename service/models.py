@@ -1,0 +1,42 @@
+"""Every table, imported in one place so the metadata (and Alembic) sees them all."""
+
+from service.accounts.models import AccessToken, Organisation, User
+from service.apparatus.models import Apparatus
+from service.audit.models import AuditEvent, ChainHead
+from service.certificates.models import Certificate, CertificateTest
+from service.custody.models import CustodyEvent
+from service.idempotency.models import IdempotencyRecord
+from service.lab_tests.models import (
+    PermeabilityTest,
+    Reading,
+    SaturationStep,
+    Specimen,
+    TestApparatus,
+    Trial,
+)
+from service.projects.models import Location, Project
+from service.samples.models import Sample
+from service.signoffs.models import SignOff
+
+__all__ = [
+    "AccessToken",
+    "Apparatus",
+    "AuditEvent",
+    "Certificate",
+    "CertificateTest",
+    "ChainHead",
+    "CustodyEvent",
+    "IdempotencyRecord",
+    "Location",
+    "Organisation",
+    "PermeabilityTest",
+    "Project",
+    "Reading",
+    "Sample",
+    "SaturationStep",
+    "SignOff",
+    "Specimen",
+    "TestApparatus",
+    "Trial",
+    "User",
+]

@@ -1,0 +1,1 @@
+"""signoffs feature."""

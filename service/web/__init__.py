@@ -1,0 +1,1 @@
+"""HTML pages and htmx fragments."""
