@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import importlib
+import pkgutil
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from typing import Any
 
 import sqlalchemy as sa
-from fastapi import FastAPI, Request
+from fastapi import APIRouter, FastAPI, Request
 from fastapi.responses import JSONResponse
 from fastapi.staticfiles import StaticFiles
 
+import service.api
+import service.web
 from service import __version__
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.errors import ServiceError
@@ -36,14 +40,14 @@ def create_app() -> FastAPI:
 
 
 def _add_routes(app: FastAPI) -> None:
-    import importlib
-
-    # The reduction route is written alongside; include it once it exists.
-    try:
-        reductions = importlib.import_module("service.api.reductions")
-        app.include_router(reductions.router)
-    except ModuleNotFoundError:
-        pass
+    # Each module of service/api and service/web that defines `router` is one resource or
+    # page group; including them all here keeps the route table in the modules themselves.
+    for package in (service.api, service.web):
+        for module_info in sorted(pkgutil.iter_modules(package.__path__), key=lambda m: m.name):
+            module = importlib.import_module(f"{package.__name__}.{module_info.name}")
+            router = getattr(module, "router", None)
+            if isinstance(router, APIRouter):
+                app.include_router(router)
 
     @app.get("/healthz", tags=["operations"])
     def healthz() -> JSONResponse:

@@ -1,8 +1,8 @@
 """baseline
 
-Revision ID: 28f0b27e614e
+Revision ID: 0001
 Revises:
-Create Date: 2026-12-01 20:15:52.524230
+Create Date: 2026-12-01 20:20:23.636337
 
 """
 
@@ -13,7 +13,7 @@ import sqlmodel
 from alembic import op
 from sqlalchemy.dialects import postgresql
 
-revision: str = "28f0b27e614e"
+revision: str = "0001"
 down_revision: str | None = None
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None

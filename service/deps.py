@@ -1,0 +1,128 @@
+"""FastAPI dependencies shared by both front doors: the request's session and its user.
+
+A request is authenticated by an API bearer token (`Authorization: Bearer ...`) or by the
+signed session cookie of the pages. Cookie-authenticated requests that change state must
+carry the session's CSRF token (header `X-CSRF-Token`, or form field `csrf_token`)."""
+
+from __future__ import annotations
+
+import hmac
+from collections.abc import Callable, Iterator
+from typing import Annotated, Any
+
+from fastapi import Depends, Request
+from itsdangerous import BadSignature, URLSafeSerializer
+from sqlmodel import Session
+
+from service.accounts.models import AccessToken, User
+from service.accounts.tokens import find_live_token
+from service.common import Role, TokenKind
+from service.config import get_settings
+from service.db import session_scope
+from service.errors import NotAuthenticated, PermissionDenied
+
+SESSION_COOKIE = "seepline_session"
+CSRF_HEADER = "X-CSRF-Token"
+SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
+LAB_STAFF = (Role.TECHNICIAN, Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN)
+
+
+def request_session(request: Request) -> Iterator[Session]:
+    """The request owns the transaction; writes take SQLite's write lock up front."""
+    with session_scope(write=request.method not in SAFE_METHODS) as session:
+        yield session
+
+
+SessionDep = Annotated[Session, Depends(request_session)]
+
+
+def cookie_serializer() -> URLSafeSerializer:
+    return URLSafeSerializer(get_settings().secret_key, salt="seepline-session")
+
+
+def sign_session_cookie(raw_token: str) -> str:
+    return cookie_serializer().dumps(raw_token)
+
+
+def _cookie_token(request: Request) -> str | None:
+    cookie = request.cookies.get(SESSION_COOKIE)
+    if not cookie:
+        return None
+    try:
+        value: Any = cookie_serializer().loads(cookie)
+    except BadSignature:
+        return None
+    return value if isinstance(value, str) else None
+
+
+async def _csrf_ok(request: Request, token: AccessToken) -> bool:
+    sent = request.headers.get(CSRF_HEADER)
+    if sent is None and request.headers.get("content-type", "").startswith(
+        ("application/x-www-form-urlencoded", "multipart/form-data")
+    ):
+        form = await request.form()
+        field = form.get("csrf_token")
+        sent = field if isinstance(field, str) else None
+    return bool(sent) and hmac.compare_digest(sent or "", token.csrf_token)
+
+
+async def authenticate(request: Request, session: SessionDep) -> tuple[User, AccessToken] | None:
+    """The user behind this request and the token that proved it, or None if anonymous."""
+    header = request.headers.get("authorization", "")
+    if header.lower().startswith("bearer "):
+        found = find_live_token(session, header[7:].strip(), kind=TokenKind.API)
+        if found is None:
+            raise NotAuthenticated("the bearer token is unknown, expired or revoked")
+        token, user = found
+        return user, token
+    raw = _cookie_token(request)
+    if raw is None:
+        return None
+    found = find_live_token(session, raw, kind=TokenKind.SESSION)
+    if found is None:
+        return None
+    token, user = found
+    if request.method not in SAFE_METHODS and not await _csrf_ok(request, token):
+        raise PermissionDenied(
+            "CSRF token missing or wrong: reload the page and try again "
+            f"(send the session's token in the {CSRF_HEADER} header or a csrf_token field)"
+        )
+    request.state.csrf_token = token.csrf_token
+    return user, token
+
+
+Authentication = Annotated[tuple[User, AccessToken] | None, Depends(authenticate)]
+
+
+def current_user(auth: Authentication) -> User:
+    if auth is None:
+        raise NotAuthenticated("sign in first (session cookie or Authorization: Bearer token)")
+    return auth[0]
+
+
+def optional_user(auth: Authentication) -> User | None:
+    return auth[0] if auth else None
+
+
+CurrentUser = Annotated[User, Depends(current_user)]
+OptionalUser = Annotated[User | None, Depends(optional_user)]
+
+
+def require_roles(*roles: Role) -> Callable[[User], User]:
+    """A dependency admitting only users who hold one of `roles`."""
+    allowed = frozenset(roles)
+
+    def dependency(user: CurrentUser) -> User:
+        if user.role not in allowed:
+            names = ", ".join(sorted(r.value for r in allowed))
+            raise PermissionDenied(f"this needs one of the roles: {names}")
+        return user
+
+    return dependency
+
+
+LabStaff = Annotated[User, Depends(require_roles(*LAB_STAFF))]
+Reviewer = Annotated[User, Depends(require_roles(Role.REVIEWER, Role.LAB_MANAGER))]
+Manager = Annotated[User, Depends(require_roles(Role.LAB_MANAGER, Role.ADMIN))]
+Reception = Annotated[User, Depends(require_roles(Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN))]
+Admin = Annotated[User, Depends(require_roles(Role.ADMIN))]
