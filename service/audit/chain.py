@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any, Literal
+from typing import Any, Literal, cast
 
 from sqlmodel import Session, SQLModel, col, select
 
@@ -83,7 +84,10 @@ class ChainReport:
 def verify(session: Session, chain: ChainName) -> ChainReport:
     """Walk the chain in sequence order and report the first link that does not hold."""
     table = _TABLES[chain]
-    rows = session.exec(select(table).order_by(col(table.seq))).all()
+    rows = cast(
+        Sequence[CustodyEvent | AuditEvent],
+        session.exec(select(table).order_by(col(table.seq))).all(),
+    )
     expected_prev, expected_seq = GENESIS, 1
     for row in rows:
         if row.seq != expected_seq:

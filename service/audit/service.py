@@ -99,7 +99,7 @@ def apply_changes(
                 actor_id=actor_id,
             )
     if changed and hasattr(row, "version"):
-        row.version += 1  # type: ignore[attr-defined]
+        row.version += 1
     session.add(row)
     session.flush()
     return changed
