@@ -1,0 +1,25 @@
+"""Reduction engine: pure computation of hydraulic conductivity, its checks and uncertainty.
+
+The one public path used by the API and the workflow::
+
+    inp = parse_request(payload)        # contract-shaped dict -> validated SI dataclasses
+    res = reduce(inp)                   # -> frozen ReductionResult
+    body = result_to_dict(res)          # -> the contract's response JSON
+"""
+
+from service.engine.errors import EngineInputError, InputProblem
+from service.engine.model import ReductionInput, ReductionResult
+from service.engine.parse import parse_request
+from service.engine.pipeline import reduce, result_to_dict
+from service.engine.version import ENGINE_VERSION
+
+__all__ = [
+    "ENGINE_VERSION",
+    "EngineInputError",
+    "InputProblem",
+    "ReductionInput",
+    "ReductionResult",
+    "parse_request",
+    "reduce",
+    "result_to_dict",
+]
