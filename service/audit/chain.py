@@ -40,18 +40,26 @@ def row_digest(row: SQLModel) -> str:
 
 
 def _lock_head(session: Session, chain: ChainName) -> ChainHead:
+    """The chain's head row, locked for the rest of this transaction (read once per transaction)."""
+    transaction = session.get_transaction()
+    cached = session.info.get(("chain_head", chain))
+    if cached is not None and cached[0] is transaction:
+        return cast(ChainHead, cached[1])
     head = session.exec(
         select(ChainHead).where(ChainHead.name == chain).with_for_update()
     ).one_or_none()
     if head is None:
         head = ChainHead(name=chain, last_seq=0, last_hash=GENESIS)
         session.add(head)
-        session.flush()
+    session.info[("chain_head", chain)] = (transaction, head)
     return head
 
 
 def append(session: Session, chain: ChainName, row: CustodyEvent | AuditEvent) -> None:
-    """Give `row` the next sequence number and the previous row's hash, then seal it."""
+    """Give `row` the next sequence number and the previous row's hash, then seal it.
+
+    The head is locked on first use in a transaction (SELECT ... FOR UPDATE on PostgreSQL;
+    SQLite's write transactions are already exclusive), so concurrent writers queue up."""
     head = _lock_head(session, chain)
     row.seq = head.last_seq + 1
     row.prev_hash = head.last_hash
@@ -59,8 +67,6 @@ def append(session: Session, chain: ChainName, row: CustodyEvent | AuditEvent) -
     head.last_seq = row.seq
     head.last_hash = row.row_hash
     session.add(row)
-    session.add(head)
-    session.flush()
 
 
 @dataclass(frozen=True)
