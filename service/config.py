@@ -31,6 +31,11 @@ class Settings(BaseSettings):
     argon2_memory_cost_kib: int = Field(default=65536, ge=8)
     session_hours: int = Field(default=12, ge=1)
     max_body_bytes: int = Field(default=5 * 1024 * 1024, ge=1024)
+    # Ed25519 key (PKCS#8 PEM) that signs issued certificates. Empty: ./var/signing_key.pem,
+    # generated once in development and test; production refuses to start without one.
+    signing_key_path: str = ""
+    # Largest PDF accepted by the public verification upload.
+    verify_upload_max_bytes: int = Field(default=10 * 1024 * 1024, ge=1024)
 
     @model_validator(mode="after")
     def _secret_key_is_real(self) -> Settings:

@@ -2,7 +2,7 @@
 
 Revision ID: 0001
 Revises:
-Create Date: 2026-12-01 20:20:23.636337
+Create Date: 2026-12-01 20:23:24.972966
 
 """
 
@@ -453,6 +453,11 @@ def upgrade() -> None:
         ),
         sa.Column(
             "options", sa.JSON().with_variant(postgresql.JSONB(), "postgresql"), nullable=False
+        ),
+        sa.Column(
+            "default_uncertainties",
+            sa.JSON().with_variant(postgresql.JSONB(), "postgresql"),
+            nullable=False,
         ),
         sa.Column(
             "result", sa.JSON().with_variant(postgresql.JSONB(), "postgresql"), nullable=True

@@ -65,6 +65,9 @@ class PermeabilityTest(SQLModel, table=True):
     effective_confining_kpa: float | None = None
     effective_confining_text: str = Field(default="", max_length=40)
     options: dict[str, Any] = json_field()
+    # Standard uncertainties from the apparatus register applied where an entry carried none
+    # (field name -> quantity text), fixed at submission so the result stays recomputable.
+    default_uncertainties: dict[str, Any] = json_field()
     # The reduction stored at submission: engine output, its version and the input hash.
     result: dict[str, Any] | None = Field(default=None, sa_type=JSONType)
     result_k_ref_m_per_s: float | None = None

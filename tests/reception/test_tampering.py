@@ -1,0 +1,81 @@
+"""The custody and audit chains detect a row altered or deleted directly in the database."""
+
+from __future__ import annotations
+
+import sqlalchemy as sa
+from fastapi.testclient import TestClient
+from sqlmodel import Session
+
+from service.cli import main as seepline
+from tests.reception.conftest import Lab, batch_body, receive
+
+
+def _run_sql(session: Session, statement: str) -> None:
+    # What someone with database access might do behind the application's back.
+    session.execute(sa.text(statement))
+    session.commit()
+
+
+def _verify(client: TestClient, lab: Lab, chain: str) -> dict[str, object]:
+    response = client.get(f"/api/v1/{chain}/verify", headers=lab.manager_headers)
+    assert response.status_code == 200
+    return dict(response.json())
+
+
+def test_custody_row_altered_in_the_database_is_named(
+    client: TestClient, session: Session, lab: Lab
+) -> None:
+    assert receive(client, lab, batch_body()).status_code == 201
+    assert _verify(client, lab, "custody")["ok"] is True
+    _run_sql(session, "UPDATE custody_event SET place = 'Bench 9' WHERE seq = 2")
+    report = _verify(client, lab, "custody")
+    assert report["ok"] is False
+    assert report["first_broken_seq"] == 2
+    assert report["problem"] == "row 2 was altered"
+
+
+def test_custody_row_deleted_in_the_middle_is_named(
+    client: TestClient, session: Session, lab: Lab
+) -> None:
+    receive(client, lab, batch_body())
+    _run_sql(session, "DELETE FROM custody_event WHERE seq = 2")
+    report = _verify(client, lab, "custody")
+    assert (report["ok"], report["first_broken_seq"]) == (False, 2)
+    assert "missing" in str(report["problem"])
+
+
+def test_custody_tail_row_deleted_is_detected(
+    client: TestClient, session: Session, lab: Lab
+) -> None:
+    receive(client, lab, batch_body())
+    _run_sql(session, "DELETE FROM custody_event WHERE seq = 3")
+    report = _verify(client, lab, "custody")
+    assert (report["ok"], report["first_broken_seq"]) == (False, 3)
+    assert "deleted" in str(report["problem"])
+
+
+def test_audit_row_altered_in_the_database_is_named(
+    client: TestClient, session: Session, lab: Lab
+) -> None:
+    receive(client, lab, batch_body())
+    assert _verify(client, lab, "audit")["ok"] is True
+    _run_sql(session, "UPDATE audit_event SET new_value = '9.99 m' WHERE seq = 4")
+    report = _verify(client, lab, "audit")
+    assert (report["ok"], report["first_broken_seq"]) == (False, 4)
+
+
+def test_verify_logs_command_reports_the_broken_row(
+    client: TestClient, session: Session, lab: Lab, capsys: object
+) -> None:
+    receive(client, lab, batch_body())
+    assert seepline(["verify-logs"]) == 0
+    _run_sql(session, "UPDATE custody_event SET note = 'edited' WHERE seq = 1")
+    assert seepline(["verify-logs"]) == 1
+    out = capsys.readouterr().out  # type: ignore[attr-defined]
+    assert "custody: BROKEN at row 1" in out
+
+
+def test_clients_cannot_run_verification(client: TestClient, lab: Lab) -> None:
+    for chain in ("custody", "audit"):
+        response = client.get(f"/api/v1/{chain}/verify", headers=lab.client_headers)
+        assert response.status_code == 403
