@@ -1,0 +1,511 @@
+"""Issuing, superseding and withdrawing certificates, and checking that one is genuine.
+
+Issuing freezes a certificate: the PDF bytes are stored with their SHA-256 and the lab's
+Ed25519 signature, and the tests it reports move to 'issued'. A correction is issued as the
+next revision of the same certificate number, which supersedes the old one; the old PDF is
+kept and the verification page says what replaced it."""
+
+from __future__ import annotations
+
+import secrets
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+from sqlmodel import Session, col, select
+
+from service.access import get_visible, is_client
+from service.accounts.models import User
+from service.audit.service import apply_changes, record_created
+from service.certificates.document import build_document
+from service.certificates.models import Certificate, CertificateTest
+from service.certificates.render import render_pdf
+from service.certificates.signing import load_signing_key, sha256_hex, verify_signature
+from service.common import CertificateKind, CertificateState, Role, SignOffMeaning, TestState
+from service.db import utcnow
+from service.errors import InvalidInput, InvalidTransition, NotFound, PermissionDenied
+from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.service import mark_issued
+from service.projects.models import Project
+from service.samples.models import Sample
+from service.signoffs.models import SignOff
+
+ISSUERS = frozenset({Role.REVIEWER, Role.LAB_MANAGER})
+CODE_ALPHABET = "ABCDEFGHJKMNPQRSTUVWXYZ23456789"  # no 0/O, 1/I/L: read aloud or typed safely
+CODE_GROUPS = 3
+REPORTABLE = (TestState.APPROVED, TestState.ISSUED)
+
+
+def new_verification_code() -> str:
+    groups = ("".join(secrets.choice(CODE_ALPHABET) for _ in range(4)) for _ in range(CODE_GROUPS))
+    return "-".join(groups)
+
+
+def normalise_code(code: str) -> str:
+    """Accept the code typed in lower case, with spaces or without its dashes."""
+    compact = "".join(ch for ch in code.upper() if ch.isalnum())
+    return "-".join(compact[i : i + 4] for i in range(0, len(compact), 4))
+
+
+def sample_certificate_number(sample: Sample) -> str:
+    return f"SC-{sample.lab_id}"
+
+
+def project_certificate_number(project: Project) -> str:
+    assert project.id is not None
+    return f"PS-{project.id:05d}"
+
+
+def _require_issuer(actor: User) -> None:
+    if actor.role not in ISSUERS:
+        raise PermissionDenied(
+            "issuing or withdrawing a certificate needs a reviewer or lab manager"
+        )
+
+
+def current_tests(tests: Sequence[PermeabilityTest]) -> list[PermeabilityTest]:
+    """Per test series, the latest revision that is approved or issued."""
+    latest: dict[tuple[int, int], PermeabilityTest] = {}
+    for test in tests:
+        if test.state not in REPORTABLE:
+            continue
+        key = (test.sample_id, test.series)
+        if key not in latest or test.revision > latest[key].revision:
+            latest[key] = test
+    return sorted(latest.values(), key=lambda t: (t.sample_id, t.series))
+
+
+def _latest_certificate(session: Session, number: str) -> Certificate | None:
+    return session.exec(
+        select(Certificate)
+        .where(Certificate.number == number)
+        .order_by(col(Certificate.revision).desc())
+    ).first()
+
+
+def _unique_code(session: Session) -> str:
+    while True:
+        code = new_verification_code()
+        taken = session.exec(
+            select(Certificate.id).where(Certificate.verification_code == code)
+        ).first()
+        if taken is None:
+            return code
+
+
+def _freeze(
+    session: Session,
+    *,
+    kind: CertificateKind,
+    project: Project,
+    groups: Sequence[tuple[Sample, Sequence[PermeabilityTest]]],
+    number: str,
+    previous: Certificate | None,
+    reason: str,
+    actor: User,
+    now: datetime,
+) -> Certificate:
+    """Render, hash and sign the PDF and store the certificate with the tests it reports."""
+    assert actor.id is not None
+    assert project.id is not None
+    key = load_signing_key()
+    code = _unique_code(session)
+    revision = previous.revision + 1 if previous else 1
+    document = build_document(
+        session,
+        kind=kind,
+        project=project,
+        samples=groups,
+        number=number,
+        revision=revision,
+        verification_code=code,
+        issued_at=now,
+        issued_by=actor,
+        key_id=key.key_id,
+        supersedes=f"{previous.number} rev {previous.revision}" if previous else "",
+        supersede_reason=reason,
+    )
+    pdf = render_pdf(document)
+    certificate = Certificate(
+        number=number,
+        revision=revision,
+        kind=kind,
+        state=CertificateState.ISSUED,
+        project_id=project.id,
+        sample_id=groups[0][0].id if kind == CertificateKind.SAMPLE else None,
+        supersedes_id=previous.id if previous else None,
+        reason=reason,
+        issued_by_id=actor.id,
+        issued_at=now,
+        pdf=pdf,
+        sha256=sha256_hex(pdf),
+        signature=key.sign(pdf),
+        key_id=key.key_id,
+        verification_code=code,
+    )
+    session.add(certificate)
+    session.flush()
+    assert certificate.id is not None
+    for _sample, tests in groups:
+        for test in tests:
+            assert test.id is not None
+            session.add(CertificateTest(certificate_id=certificate.id, test_id=test.id))
+    record_created(session, certificate, actor_id=actor.id)
+    if previous is not None:
+        changes: dict[str, Any] = {"superseded_by_id": certificate.id}
+        if previous.state == CertificateState.ISSUED:
+            changes["state"] = CertificateState.SUPERSEDED
+        apply_changes(session, previous, changes, actor_id=actor.id)
+    session.flush()
+    return certificate
+
+
+def issue_sample_certificate(
+    session: Session,
+    sample_id: int,
+    *,
+    actor: User,
+    reason: str = "",
+    now: datetime | None = None,
+) -> Certificate:
+    """Issue (or re-issue as the next revision) the certificate of one sample.
+
+    Reports, per test series, the latest approved or issued revision; at least one of them
+    must be newly approved, unless the sample's last certificate was withdrawn."""
+    _require_issuer(actor)
+    now = now or utcnow()
+    sample = session.get(Sample, sample_id)
+    if sample is None:
+        raise NotFound(f"sample {sample_id} not found")
+    project = session.get(Project, sample.project_id)
+    assert project is not None
+    all_tests = session.exec(
+        select(PermeabilityTest).where(PermeabilityTest.sample_id == sample_id)
+    ).all()
+    tests = current_tests(all_tests)
+    number = sample_certificate_number(sample)
+    previous = _latest_certificate(session, number)
+    newly_approved = [t for t in tests if t.state == TestState.APPROVED]
+    reissue = previous is not None and previous.state == CertificateState.WITHDRAWN
+    if not newly_approved and not (reissue and tests):
+        states = sorted({t.state for t in all_tests})
+        raise InvalidTransition(
+            f"sample {sample.lab_id} has no approved test to certify "
+            f"(its tests are: {', '.join(states) or 'none'}); only approved tests reach a "
+            "certificate",
+            detail={"sample_id": sample_id, "test_states": states},
+        )
+    if not reason:
+        reason = "; ".join(
+            f"test {t.series} revision {t.revision}: {t.correction_reason}"
+            for t in newly_approved
+            if t.revision > 1 and t.correction_reason
+        )
+    certificate = _freeze(
+        session,
+        kind=CertificateKind.SAMPLE,
+        project=project,
+        groups=[(sample, tests)],
+        number=number,
+        previous=previous,
+        reason=reason[:1000],
+        actor=actor,
+        now=now,
+    )
+    reported = {t.id for t in tests}
+    for test in newly_approved:
+        assert test.id is not None
+        mark_issued(session, test.id, actor=actor)  # the lifecycle's approved -> issued
+        _sign_issued(session, test, actor, certificate, now)
+    # Revisions replaced by a correction on this certificate stop being current.
+    for test in all_tests:
+        if (
+            test.id not in reported
+            and test.state == TestState.ISSUED
+            and any(t.series == test.series and t.revision > test.revision for t in tests)
+        ):
+            apply_changes(session, test, {"state": TestState.SUPERSEDED}, actor_id=actor.id)
+    return certificate
+
+
+def _sign_issued(
+    session: Session, test: PermeabilityTest, actor: User, certificate: Certificate, now: datetime
+) -> None:
+    assert test.id is not None
+    assert actor.id is not None
+    session.add(
+        SignOff(
+            test_id=test.id,
+            user_id=actor.id,
+            role=actor.role,
+            meaning=SignOffMeaning.ISSUED,
+            content_hash=certificate.sha256,
+            test_version=test.version,
+            note=f"certificate {certificate.number} rev {certificate.revision}",
+            signed_at=now,
+        )
+    )
+    session.flush()
+
+
+def issue_project_certificate(
+    session: Session,
+    project_id: int,
+    *,
+    actor: User,
+    reason: str = "",
+    now: datetime | None = None,
+) -> Certificate:
+    """Issue a project summary of every currently issued test (next revision if one exists)."""
+    _require_issuer(actor)
+    now = now or utcnow()
+    project = session.get(Project, project_id)
+    if project is None:
+        raise NotFound(f"project {project_id} not found")
+    rows = session.exec(
+        select(PermeabilityTest, Sample)
+        .join(Sample, col(Sample.id) == col(PermeabilityTest.sample_id))
+        .where(Sample.project_id == project_id)
+        .order_by(col(Sample.lab_id))
+    ).all()
+    samples = {sample.id: sample for _test, sample in rows}
+    tests = [t for t in current_tests([t for t, _s in rows]) if t.state == TestState.ISSUED]
+    if not tests:
+        raise InvalidTransition(
+            f"project {project.number} has no issued test to summarise; issue the sample "
+            "certificates first",
+            detail={"project_id": project_id},
+        )
+    groups: list[tuple[Sample, list[PermeabilityTest]]] = []
+    for sample_id in sorted({t.sample_id for t in tests}, key=lambda s: samples[s].lab_id):
+        groups.append((samples[sample_id], [t for t in tests if t.sample_id == sample_id]))
+    number = project_certificate_number(project)
+    return _freeze(
+        session,
+        kind=CertificateKind.PROJECT,
+        project=project,
+        groups=groups,
+        number=number,
+        previous=_latest_certificate(session, number),
+        reason=reason[:1000],
+        actor=actor,
+        now=now,
+    )
+
+
+def withdraw_certificate(
+    session: Session,
+    certificate_id: int,
+    *,
+    actor: User,
+    reason: str,
+    now: datetime | None = None,
+) -> Certificate:
+    """Withdraw an issued certificate; the PDF stays downloadable and verification says so."""
+    _require_issuer(actor)
+    reason = reason.strip()
+    if not reason or len(reason) > 1000:
+        raise InvalidInput(
+            "a withdrawal needs a reason",
+            detail=[
+                {
+                    "loc": ["body", "reason"],
+                    "msg": f"reason: got {reason!r}; accepted: the reason for withdrawing, "
+                    "1 to 1000 characters",
+                    "type": "value_error",
+                }
+            ],
+        )
+    certificate = session.get(Certificate, certificate_id)
+    if certificate is None:
+        raise NotFound(f"certificate {certificate_id} not found")
+    if certificate.state != CertificateState.ISSUED:
+        raise InvalidTransition(
+            f"certificate {certificate.number} rev {certificate.revision} is {certificate.state}; "
+            "only an issued (current) certificate can be withdrawn",
+            detail={"state": certificate.state},
+        )
+    apply_changes(
+        session,
+        certificate,
+        {
+            "state": CertificateState.WITHDRAWN,
+            "withdrawn_at": now or utcnow(),
+            "reason": reason,
+        },
+        actor_id=actor.id,
+    )
+    return certificate
+
+
+def list_certificates(
+    session: Session,
+    *,
+    user: User,
+    project_id: int | None = None,
+    sample_id: int | None = None,
+) -> list[Certificate]:
+    """Certificates the user may see, narrowed to a project or a sample (404 if not visible)."""
+    query = select(Certificate).join(Project, col(Project.id) == col(Certificate.project_id))
+    if project_id is not None:
+        get_visible(session, Project, project_id, user, "project")
+        query = query.where(Certificate.project_id == project_id)
+    if sample_id is not None:
+        get_visible(session, Sample, sample_id, user, "sample")
+        query = query.where(Certificate.sample_id == sample_id)
+    if is_client(user):
+        query = query.where(Project.client_id == user.organisation_id)
+    query = query.order_by(col(Certificate.number), col(Certificate.revision))
+    return list(session.exec(query).all())
+
+
+def get_certificate(session: Session, certificate_id: int, *, user: User) -> Certificate:
+    return get_visible(session, Certificate, certificate_id, user, "certificate")
+
+
+def find_by_code(session: Session, code: str) -> Certificate:
+    normalised = normalise_code(code)
+    certificate = session.exec(
+        select(Certificate).where(Certificate.verification_code == normalised)
+    ).first()
+    if certificate is None:
+        raise NotFound(f"no certificate has the verification code '{code[:40]}'")
+    return certificate
+
+
+def tests_of(session: Session, certificate: Certificate) -> list[PermeabilityTest]:
+    return list(
+        session.exec(
+            select(PermeabilityTest)
+            .join(CertificateTest, col(CertificateTest.test_id) == col(PermeabilityTest.id))
+            .where(CertificateTest.certificate_id == certificate.id)
+            .order_by(col(PermeabilityTest.id))
+        ).all()
+    )
+
+
+@dataclass(frozen=True)
+class CertificateStatus:
+    """What the public verification page shows about one certificate (no client details)."""
+
+    verification_code: str
+    number: str
+    revision: int
+    kind: str
+    state: str
+    is_current: bool
+    issued_at: datetime
+    issued_by: str
+    lab_name: str
+    sha256: str
+    key_id: str
+    signature: str
+    reason: str
+    withdrawn_at: datetime | None
+    superseded_by: str
+    superseded_by_code: str
+    supersedes: str
+    supersedes_code: str
+
+    @property
+    def headline(self) -> str:
+        if self.state == CertificateState.ISSUED:
+            return f"Certificate {self.number} rev {self.revision} is issued and current."
+        if self.state == CertificateState.SUPERSEDED:
+            return (
+                f"Certificate {self.number} rev {self.revision} is superseded by "
+                f"{self.superseded_by}. Use the newer revision."
+            )
+        text = f"Certificate {self.number} rev {self.revision} was withdrawn"
+        if self.superseded_by:
+            text += f" and replaced by {self.superseded_by}"
+        return text + "."
+
+
+def certificate_status(session: Session, certificate: Certificate) -> CertificateStatus:
+    from service.certificates.document import lab_party
+
+    issuer = session.get(User, certificate.issued_by_id)
+    newer = (
+        session.get(Certificate, certificate.superseded_by_id)
+        if certificate.superseded_by_id
+        else None
+    )
+    older = (
+        session.get(Certificate, certificate.supersedes_id) if certificate.supersedes_id else None
+    )
+    return CertificateStatus(
+        verification_code=certificate.verification_code,
+        number=certificate.number,
+        revision=certificate.revision,
+        kind=certificate.kind,
+        state=certificate.state,
+        is_current=certificate.state == CertificateState.ISSUED,
+        issued_at=certificate.issued_at,
+        issued_by=issuer.full_name if issuer else "-",
+        lab_name=lab_party(session).name,
+        sha256=certificate.sha256,
+        key_id=certificate.key_id,
+        signature=certificate.signature,
+        reason=certificate.reason,
+        withdrawn_at=certificate.withdrawn_at,
+        superseded_by=f"{newer.number} rev {newer.revision}" if newer else "",
+        superseded_by_code=newer.verification_code if newer else "",
+        supersedes=f"{older.number} rev {older.revision}" if older else "",
+        supersedes_code=older.verification_code if older else "",
+    )
+
+
+@dataclass(frozen=True)
+class UploadCheck:
+    """The answer to 'is this PDF genuine and current?'."""
+
+    sha256: str
+    genuine: bool
+    current: bool
+    message: str
+    status: CertificateStatus | None
+
+
+def check_upload(session: Session, data: bytes) -> UploadCheck:
+    """Genuine means: the bytes hash to a stored certificate AND the lab's signature verifies."""
+    digest = sha256_hex(data)
+    if not data.startswith(b"%PDF-"):
+        return UploadCheck(
+            digest, False, False, "The file is not a PDF; upload the certificate PDF.", None
+        )
+    certificate = session.exec(select(Certificate).where(Certificate.sha256 == digest)).first()
+    if certificate is None:
+        return UploadCheck(
+            digest,
+            False,
+            False,
+            "Not genuine: no certificate with this content was issued by this laboratory. "
+            "The file was changed after issue, or it is not one of ours.",
+            None,
+        )
+    status = certificate_status(session, certificate)
+    key = load_signing_key()
+    if certificate.key_id != key.key_id:
+        return UploadCheck(
+            digest,
+            False,
+            False,
+            f"Cannot confirm: the certificate was signed with key {certificate.key_id}, "
+            f"not the laboratory's published key {key.key_id}.",
+            status,
+        )
+    if not verify_signature(key.public_key, data, certificate.signature):
+        return UploadCheck(
+            digest,
+            False,
+            False,
+            "Not genuine: the stored signature does not verify against this file.",
+            status,
+        )
+    if status.is_current:
+        message = f"Genuine and current: {status.headline}"
+    else:
+        message = f"Genuine, but not current: {status.headline}"
+    return UploadCheck(digest, True, status.is_current, message, status)
