@@ -19,6 +19,7 @@ from service.accounts.models import Organisation, User
 from service.accounts.service import create_user, get_or_create_organisation
 from service.apparatus.models import Apparatus
 from service.audit.service import record_created
+from service.certificates.service import issue_sample_certificate
 from service.common import (
     ApparatusKind,
     CustodyKind,
@@ -26,17 +27,23 @@ from service.common import (
     OrganisationKind,
     Preparation,
     Role,
-    SignOffMeaning,
     TestMethod,
     TestState,
 )
 from service.custody.service import record_custody
-from service.lab_tests.models import PermeabilityTest, SaturationStep, Specimen, Trial
-from service.lab_tests.payload import build_request, input_hash
+from service.lab_tests import service as lifecycle
+from service.lab_tests.models import Specimen
+from service.lab_tests.schemas import (
+    CorrectionRequest,
+    SaturationStepCreate,
+    SignOffRequest,
+    SpecimenWrite,
+    TestCreate,
+    TrialCreate,
+)
 from service.projects.models import Location, Project
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
-from service.signoffs.models import SignOff
 
 LAB_NAME = "Larkspur Soils Laboratory"
 DEMO_PASSWORDS: dict[str, tuple[str, str]] = {
@@ -226,8 +233,7 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
                     technician=technician,
                     reviewer=reviewer,
                     manager=manager,
-                    permeameter=apparatus[plan.method],
-                    when=received + timedelta(days=1),
+                    apparatus_ids=apparatus[plan.method],
                 )
             serial += 1
     return True
@@ -235,7 +241,7 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
 
 def _load_apparatus(
     session: Session, now: datetime, *, actor_id: int | None
-) -> dict[TestMethod, Apparatus]:
+) -> dict[TestMethod, list[int]]:
     today = now.date()
     items = [
         Apparatus(
@@ -302,11 +308,15 @@ def _load_apparatus(
         session.add(item)
         session.flush()
         record_created(session, item, actor_id=actor_id)
+    # Every test uses a permeameter, the balance, the thermometer and the caliper (their
+    # resolutions become default uncertainties); the overdue timer is left unassigned.
+    shared = [item.id for item in items[3:6] if item.id is not None]
+    ids = {item.identifier: item.id for item in items if item.id is not None}
     return {
-        TestMethod.CONSTANT_HEAD: items[0],
-        TestMethod.FALLING_HEAD_RISING_TAIL: items[1],
-        TestMethod.FALLING_HEAD: items[2],
-        TestMethod.CONSTANT_RATE: items[1],
+        TestMethod.CONSTANT_HEAD: [ids["PRM-R01"], *shared],
+        TestMethod.FALLING_HEAD_RISING_TAIL: [ids["PRM-F02"], *shared],
+        TestMethod.FALLING_HEAD: [ids["PRM-F03"], *shared],
+        TestMethod.CONSTANT_RATE: [ids["PRM-F02"], *shared],
     }
 
 
@@ -421,48 +431,32 @@ def _trial_entries(
     }
 
 
-def _make_specimen(rng: random.Random, plan: _ProjectPlan, test: PermeabilityTest) -> Specimen:
-    assert test.id is not None
+def _specimen_write(rng: random.Random, plan: _ProjectPlan) -> SpecimenWrite:
     if plan.method == TestMethod.CONSTANT_HEAD:
-        diameter, length, mass = 0.1016, 0.200, rng.uniform(3.05, 3.25)
-        water = rng.uniform(4.0, 7.0)
-        return Specimen(
-            test_id=test.id,
+        return SpecimenWrite(
             preparation=Preparation.REMOULDED,
-            diameter_m=diameter,
-            diameter_text="101.6 mm",
-            length_m=length,
-            length_text="200.0 mm",
-            wet_mass_kg=mass,
-            wet_mass_text=f"{mass * 1000:.1f} g",
-            water_content=water / 100,
-            water_content_text=f"{water:.1f} %",
+            diameter="101.6 mm",
+            length="200.0 mm",
+            wet_mass=f"{rng.uniform(3050, 3250):.1f} g",
+            water_content=f"{rng.uniform(4.0, 7.0):.1f} %",
             specific_gravity=2.65,
-            d10_m=0.30e-3,
-            d10_text="0.30 mm",
-            max_particle_size_m=9.5e-3,
-            max_particle_size_text="9.5 mm",
-            retained_on_lower_sieve_pct=12.0,
+            d10="0.30 mm",
+            max_particle_size="9.5 mm",
+            retained_on_lower_sieve="12 %",
         )
-    diameter = rng.uniform(0.0705, 0.0715)
-    length = rng.uniform(0.0720, 0.0745)
-    water = rng.uniform(19.0, 24.0)
+    diameter = rng.uniform(70.5, 71.5)
+    length = rng.uniform(72.0, 74.5)
     bulk = rng.uniform(1.93, 2.02)  # g/cm3
-    mass = bulk * 1000 * math.pi * diameter**2 / 4 * length
-    return Specimen(
-        test_id=test.id,
-        preparation=Preparation.INTACT if plan.sample_type == "tube" else Preparation.COMPACTED,
-        diameter_m=diameter,
-        diameter_text=f"{diameter * 1000:.2f} mm",
-        length_m=length,
-        length_text=f"{length * 1000:.2f} mm",
-        wet_mass_kg=mass,
-        wet_mass_text=f"{mass * 1000:.1f} g",
-        water_content=water / 100,
-        water_content_text=f"{water:.1f} %",
+    mass = bulk * math.pi * (diameter / 10) ** 2 / 4 * (length / 10)
+    compacted = plan.sample_type != "tube"
+    return SpecimenWrite(
+        preparation=Preparation.COMPACTED if compacted else Preparation.INTACT,
+        diameter=f"{diameter:.2f} mm",
+        length=f"{length:.2f} mm",
+        wet_mass=f"{mass:.1f} g",
+        water_content=f"{rng.uniform(19.0, 24.0):.1f} %",
         specific_gravity=2.70,
-        max_dry_density_kg_per_m3=1700.0 if plan.sample_type != "tube" else None,
-        max_dry_density_text="1.700 g/cm^3" if plan.sample_type != "tube" else "",
+        max_dry_density="1.700 g/cm**3" if compacted else None,
     )
 
 
@@ -476,141 +470,91 @@ def _make_test(
     technician: User,
     reviewer: User,
     manager: User,
-    permeameter: Apparatus,
-    when: datetime,
+    apparatus_ids: list[int],
 ) -> None:
-    from service.engine import parse_request, reduce, result_to_dict
-
+    """Take one test as far as `state` through the same service functions the API uses."""
     assert sample.id is not None
-    test = PermeabilityTest(
-        sample_id=sample.id,
-        method=plan.method,
-        standard=plan.standard,
-        state=TestState.PLANNED,
-        technician_id=technician.id,
-        spec_k_max_text=plan.spec_text,
-        spec_k_max_m_per_s=float(plan.spec_text.split()[0]) if plan.spec_text else None,
-        due_date=sample.due_date,
-        requested_at=when,
-        requested_by_id=manager.id,
+    flexible = plan.method != TestMethod.CONSTANT_HEAD
+    test = lifecycle.request_test(
+        session,
+        sample.id,
+        TestCreate(
+            method=plan.method,
+            standard=plan.standard,  # type: ignore[arg-type]
+            technician_id=technician.id,
+            apparatus_ids=apparatus_ids,
+            cell_pressure="550 kPa" if flexible else None,
+            back_pressure="515 kPa" if flexible else None,
+            effective_confining="35 kPa" if flexible else None,
+        ),
+        actor=manager,
     )
-    if plan.method != TestMethod.CONSTANT_HEAD:
-        test.cell_pressure_kpa, test.cell_pressure_text = 550.0, "550 kPa"
-        test.back_pressure_kpa, test.back_pressure_text = 515.0, "515 kPa"
-        test.effective_confining_kpa, test.effective_confining_text = 35.0, "35 kPa"
-    session.add(test)
-    session.flush()
-    record_created(session, test, actor_id=manager.id)
+    assert test.id is not None
     if state == TestState.PLANNED:
         return
-    assert test.id is not None
-    test.state = TestState.RUNNING
-    test.started_at = when + timedelta(hours=2)
-    specimen = _make_specimen(rng, plan, test)
-    specimen.recorded_by_id = technician.id
-    session.add(specimen)
-    saturation: list[SaturationStep] = []
-    if plan.method != TestMethod.CONSTANT_HEAD:
-        for seq, (back, b_value) in enumerate(((345, 0.88), (445, 0.94), (515, 0.97)), start=1):
-            step = SaturationStep(
-                test_id=test.id,
-                seq=seq,
-                back_pressure_kpa=float(back),
-                back_pressure_text=f"{back} kPa",
-                b_value=b_value,
+    specimen_form = _specimen_write(rng, plan)
+    specimen = lifecycle.write_specimen(session, test.id, specimen_form, actor=technician)
+    if flexible:
+        for back, b_value in ((345, 0.88), (445, 0.94), (515, 0.97)):
+            lifecycle.add_saturation_step(
+                session,
+                test.id,
+                SaturationStepCreate(back_pressure=f"{back} kPa", b_value=b_value),
+                actor=technician,
             )
-            session.add(step)
-            saturation.append(step)
-    session.flush()
     k = 10 ** rng.uniform(*plan.log10_k)
     count = rng.randint(1, 3) if state == TestState.RUNNING else 4
-    trials = []
     for seq in range(1, count + 1):
-        trial = Trial(
-            test_id=test.id,
-            seq=seq,
+        entries = _trial_entries(rng, plan, k, specimen)
+        lifecycle.record_trial(
+            session,
+            test.id,
+            TrialCreate(**entries),
             idempotency_key=f"demo-{sample.lab_id}-{seq}",
-            entries=_trial_entries(rng, plan, k, specimen),
-            recorded_by_id=technician.id,
-            recorded_at=when + timedelta(days=seq),
+            actor=technician,
         )
-        session.add(trial)
-        trials.append(trial)
-    session.flush()
     if state == TestState.RUNNING:
         return
-    request = build_request(
-        test, specimen=specimen, trials=trials, saturation=saturation, permeameter=permeameter
-    )
-    result = result_to_dict(reduce(parse_request(request)))
-    for trial, output in zip(trials, result["trials"], strict=True):
-        trial.k_m_per_s = output["k_m_per_s"]
-        trial.k_ref_m_per_s = output["k_ref_m_per_s"]
-        trial.gradient = output["gradient"]
-    test.result = result
-    test.result_k_ref_m_per_s = result["result"]["k_ref_m_per_s"]
-    test.engine_version = result["engine_version"]
-    test.input_hash = input_hash(request)
-    test.state = TestState.SUBMITTED
-    test.submitted_at = when + timedelta(days=count + 1)
-    _sign(session, test, technician, SignOffMeaning.PERFORMED, test.submitted_at)
+    password = DEMO_PASSWORDS[technician.email][1]
+    lifecycle.submit_test(session, test.id, SignOffRequest(password=password), actor=technician)
     if state == TestState.SUBMITTED:
         return
-    test.state = TestState.APPROVED
-    test.reviewer_id = reviewer.id
-    test.approved_at = test.submitted_at + timedelta(hours=20)
-    _sign(session, test, reviewer, SignOffMeaning.APPROVED, test.approved_at)
+    reviewer_password = DEMO_PASSWORDS[reviewer.email][1]
+    lifecycle.approve_test(
+        session, test.id, SignOffRequest(password=reviewer_password), actor=reviewer
+    )
     if state == TestState.APPROVED:
         return
-    test.state = TestState.ISSUED
-    test.issued_at = test.approved_at + timedelta(hours=3)
+    issue_sample_certificate(session, sample.id, actor=reviewer)
     if state == TestState.ISSUED:
         return
-    # A superseded test: a transcription slip corrected in revision 2, which is approved.
-    test.state = TestState.SUPERSEDED
-    correction = PermeabilityTest(
-        sample_id=sample.id,
-        series=test.series,
-        revision=2,
-        supersedes_id=test.id,
-        correction_reason="Specimen length transcribed as 73.2 mm; the datasheet reads 72.3 mm.",
-        method=test.method,
-        standard=test.standard,
-        state=TestState.APPROVED,
-        technician_id=test.technician_id,
-        reviewer_id=reviewer.id,
-        spec_k_max_text=test.spec_k_max_text,
-        spec_k_max_m_per_s=test.spec_k_max_m_per_s,
-        result=test.result,
-        result_k_ref_m_per_s=test.result_k_ref_m_per_s,
-        engine_version=test.engine_version,
-        input_hash=test.input_hash,
-        requested_at=test.issued_at + timedelta(days=2),
-        approved_at=test.issued_at + timedelta(days=3),
-        requested_by_id=manager.id,
+    # Superseded: a transcription slip found after issue, corrected in revision 2, which is
+    # approved and issued on a new certificate revision that supersedes the first.
+    correction = lifecycle.request_correction(
+        session,
+        test.id,
+        CorrectionRequest(
+            reason="Specimen length transcribed from the wrong line of the datasheet."
+        ),
+        actor=manager,
     )
-    session.add(correction)
-    session.flush()
-    test.superseded_by_id = correction.id
-    session.add(test)
-    session.flush()
-
-
-def _sign(
-    session: Session, test: PermeabilityTest, user: User, meaning: SignOffMeaning, when: datetime
-) -> None:
-    assert test.id is not None
-    assert user.id is not None
-    session.add(test)
-    session.flush()
-    session.add(
-        SignOff(
-            test_id=test.id,
-            user_id=user.id,
-            role=user.role,
-            meaning=meaning,
-            content_hash=test.input_hash,
-            test_version=test.version,
-            signed_at=when,
-        )
+    assert correction.id is not None
+    corrected = lifecycle.specimen_of(session, correction.id)
+    assert corrected is not None
+    assert corrected.length_m is not None
+    length_mm = corrected.length_m * 1000 - 0.9
+    lifecycle.write_specimen(
+        session,
+        correction.id,
+        SpecimenWrite(version=corrected.version, length=f"{length_mm:.2f} mm"),
+        actor=technician,
+    )
+    lifecycle.submit_test(
+        session, correction.id, SignOffRequest(password=password), actor=technician
+    )
+    lifecycle.approve_test(
+        session, correction.id, SignOffRequest(password=reviewer_password), actor=reviewer
+    )
+    issue_sample_certificate(
+        session, sample.id, actor=reviewer, reason="Specimen length corrected (revision 2)."
     )

@@ -17,6 +17,7 @@ os.environ["ENVIRONMENT"] = "test"
 os.environ["SECRET_KEY"] = "test-secret-key-not-for-production"
 os.environ["ARGON2_TIME_COST"] = "1"
 os.environ["ARGON2_MEMORY_COST_KIB"] = "64"
+os.environ.setdefault("SIGNING_KEY_PATH", str(_TMP / "signing_key.pem"))
 
 import pytest  # noqa: E402
 import sqlalchemy as sa  # noqa: E402

@@ -63,12 +63,18 @@ def _create_key_file(path: Path) -> None:
         serialization.PrivateFormat.PKCS8,
         serialization.NoEncryption(),
     )
-    try:
-        descriptor = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
-    except FileExistsError:
-        return
+    # Written whole to a private temporary file, then linked into place: a reader never sees
+    # a half-written key, and a concurrent creator's key wins if it linked first.
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    descriptor = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
     with os.fdopen(descriptor, "wb") as handle:
         handle.write(pem)
+    try:
+        os.link(temporary, path)
+    except FileExistsError:
+        pass
+    finally:
+        temporary.unlink()
 
 
 @lru_cache

@@ -1093,7 +1093,7 @@ def submit_test(
     _require_submitter(test, actor)
     _require_state(test, {TestState.RUNNING}, "submit")
     _check_version(test, data.version, "test", {}, required=False)
-    signoffs.confirm_password(actor, data.password)
+    signoffs.confirm_password(session, actor, data.password)
     _calibration_check(session, test)
     inputs = _inputs(session, test)
     result, exc = _run(inputs)
@@ -1151,7 +1151,7 @@ def approve_test(
         raise PermissionDenied(
             f"you performed test {test.id}; another reviewer or lab manager must approve it"
         )
-    signoffs.confirm_password(actor, data.password)
+    signoffs.confirm_password(session, actor, data.password)
     if not _entries_unchanged(session, test):
         raise Conflict(
             f"test {test.id}: its inputs (entries, or the permeameter's geometry) no longer "

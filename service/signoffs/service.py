@@ -10,11 +10,11 @@ from typing import Any
 
 from sqlmodel import Session, col, select
 
+from service.accounts import signin
 from service.accounts.models import User
-from service.accounts.passwords import verify_password
 from service.audit.service import record_created
 from service.common import SignOffMeaning
-from service.errors import PermissionDenied
+from service.errors import PermissionDenied, TooManyAttempts
 from service.lab_tests.models import PermeabilityTest
 from service.signoffs.models import SignOff
 
@@ -39,13 +39,22 @@ def content_hash(test: PermeabilityTest) -> str:
     return _sha256(signed_content(test))
 
 
-def confirm_password(user: User, password: str) -> None:
-    """Refuse (403) unless `password` is the signer's own: a sign-off is a signature."""
-    if not password or not verify_password(user.password_hash, password):
-        raise PermissionDenied(
-            "password: the password is not correct; nothing was signed or changed",
-            detail={"field": "password"},
-        )
+def confirm_password(session: Session, user: User, password: str) -> None:
+    """Refuse (403) unless `password` is the signer's own: a sign-off is a signature.
+
+    Wrong passwords count towards the sign-in lock-out (429 once locked). The failure count
+    is committed before the refusal ends the request, which rolls back everything else; this
+    runs before the sign-off changes anything, so nothing else is committed with it."""
+    try:
+        signin.confirm_password(session, user, password, field="password")
+    except (PermissionDenied, TooManyAttempts) as exc:
+        session.commit()
+        if isinstance(exc, PermissionDenied):
+            raise PermissionDenied(
+                "password: the password is not correct; nothing was signed or changed",
+                detail={"field": "password"},
+            ) from exc
+        raise
 
 
 def record_sign_off(
