@@ -33,7 +33,9 @@ def request_session(request: Request) -> Iterator[Session]:
         yield session
 
 
-SessionDep = Annotated[Session, Depends(request_session)]
+# scope="function": commit before the response is sent, so a redirect or a client's next
+# request never runs ahead of the write it follows.
+SessionDep = Annotated[Session, Depends(request_session, scope="function")]
 
 
 def cookie_serializer() -> URLSafeSerializer:

@@ -18,6 +18,8 @@ import service.web
 from service import __version__
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.errors import ServiceError
+from service.web.errors import install_web_error_handling
+from service.security import install_security
 
 
 @asynccontextmanager
@@ -36,6 +38,7 @@ def create_app() -> FastAPI:
     app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
     _add_routes(app)
     app.add_exception_handler(ServiceError, _service_error)
+    install_security(app)
     return app
 
 

@@ -1,0 +1,158 @@
+"""The htmx protocol in one place: request details, fragment-or-page rendering, redirects.
+
+Chosen htmx 4 behaviour (STACK.md): htmx 4 swaps 4xx and 5xx responses like any other
+(only 204 and 304 are not swapped). We keep that default on purpose. Every fragment a route
+may answer with an error status (a 422 form fragment, a 409 conflict, a 404) is written to be
+swapped into the same target as the success fragment, so the message appears where the user
+was looking and everything they typed stays in the page. Redirects go through `redirect()`,
+which answers htmx with `HX-Redirect` (htmx then loads the page itself) and anything else
+with 303 See Other.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Annotated, Any
+
+from fastapi import Depends, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from fastapi.templating import Jinja2Templates
+from markupsafe import Markup
+
+from service import __version__
+from service.config import get_settings
+from service.db import PROJECT_ROOT
+
+HTMX_VERSION = "4.0.1"
+HTMX_SCRIPT = f"/static/vendor/htmx-{HTMX_VERSION}.min.js"
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+@dataclass(frozen=True, slots=True)
+class HtmxDetails:
+    """What htmx told us about a request (all false/None for an ordinary browser request)."""
+
+    is_htmx: bool
+    boosted: bool
+    target: str | None
+    source: str | None
+    current_url: str | None
+    history_restore: bool
+
+    @property
+    def wants_fragment(self) -> bool:
+        """A fragment answers a targeted htmx request; boosts and history restores need pages."""
+        return self.is_htmx and not self.boosted and not self.history_restore
+
+
+def htmx_details(request: Request) -> HtmxDetails:
+    headers = request.headers
+    return HtmxDetails(
+        is_htmx=headers.get("HX-Request") == "true",
+        boosted=headers.get("HX-Boosted") == "true",
+        target=headers.get("HX-Target") or None,
+        source=headers.get("HX-Source") or None,
+        current_url=headers.get("HX-Current-URL") or None,
+        history_restore=headers.get("HX-History-Restore-Request") == "true",
+    )
+
+
+HtmxDep = Annotated[HtmxDetails, Depends(htmx_details)]
+
+
+def sci(value: float | None, digits: int = 3) -> Markup | str:
+    """A figure in scientific notation with a real superscript: 1.76 × 10⁻⁹."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    if value == 0:
+        return "0"
+    exponent = math.floor(math.log10(abs(value)))
+    if -2 <= exponent <= 3:
+        return f"{value:.{digits}g}"
+    mantissa = value / 10**exponent
+    if round(mantissa, digits - 1) >= 10:
+        mantissa /= 10
+        exponent += 1
+    text = f"{mantissa:.{digits - 1}f} × 10{str(exponent).translate(_SUPERSCRIPT)}"
+    return Markup('<span class="sci">{}</span>').format(text)
+
+
+def number(value: float | None, digits: int = 3) -> str:
+    """A plain figure to `digits` significant digits, or a dash when there is none."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    return f"{value:.{digits}g}"
+
+
+def _make_templates() -> Jinja2Templates:
+    templates = Jinja2Templates(directory=PROJECT_ROOT / "templates")
+    env = templates.env
+    env.filters["sci"] = sci
+    env.filters["number"] = number
+    env.globals["htmx_script"] = HTMX_SCRIPT
+    env.globals["app_version"] = __version__
+    env.globals["lab_name"] = get_settings().lab_name
+    env.trim_blocks = True
+    env.lstrip_blocks = True
+    return templates
+
+
+templates = _make_templates()
+
+
+def _vary_on_htmx(response: Response) -> None:
+    existing = response.headers.get("Vary")
+    if existing is None:
+        response.headers["Vary"] = "HX-Request"
+    elif "hx-request" not in existing.lower():
+        response.headers["Vary"] = f"{existing}, HX-Request"
+
+
+def render(
+    request: Request,
+    template: str,
+    context: Mapping[str, Any] | None = None,
+    *,
+    fragment: str | None = None,
+    status_code: int = 200,
+    headers: Mapping[str, str] | None = None,
+) -> HTMLResponse:
+    """Render `fragment` for a targeted htmx request, else the full page `template`.
+
+    The page template includes its fragments, so both answers carry the same markup.
+    `Vary: HX-Request` is always set: caches must not serve a fragment for a page load.
+    """
+    details = htmx_details(request)
+    name = fragment if fragment is not None and details.wants_fragment else template
+    full_context: dict[str, Any] = {
+        "csrf_token": getattr(request.state, "csrf_token", None),
+        "htmx": details,
+        **(context or {}),
+    }
+    response = templates.TemplateResponse(
+        request, name, full_context, status_code=status_code, headers=dict(headers or {})
+    )
+    _vary_on_htmx(response)
+    return response
+
+
+def redirect(request: Request, url: str, *, status_code: int = 303) -> Response:
+    """Send the browser to `url`: `HX-Redirect` for htmx (a full load), else 303 See Other."""
+    if htmx_details(request).is_htmx:
+        response = Response(status_code=200, headers={"HX-Redirect": url})
+    else:
+        response = RedirectResponse(url, status_code=status_code)
+    _vary_on_htmx(response)
+    return response
+
+
+def safe_next(target: str | None, default: str = "/") -> str:
+    """`target` if it is a path on this site, else `default` (no open redirects)."""
+    if not target or not target.startswith("/") or target.startswith("//"):
+        return default
+    if "\\" in target or any(ord(ch) < 32 for ch in target):
+        return default
+    return target

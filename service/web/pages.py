@@ -1,0 +1,300 @@
+"""Pages everyone uses: sign in, sign out, the home page that fits the role, sample search."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Annotated, Any
+
+import sqlalchemy as sa
+from fastapi import APIRouter, Form, Query, Request
+from fastapi.responses import Response
+from itsdangerous import BadSignature
+from sqlmodel import Session, col, func, select
+
+from service.access import scope_projects
+from service.accounts import signin
+from service.accounts.models import AccessToken, User
+from service.accounts.service import revoke_token
+from service.accounts.tokens import find_live_token
+from service.common import Role, TestState, TokenKind
+from service.config import get_settings
+from service.deps import (
+    SESSION_COOKIE,
+    Authentication,
+    CurrentUser,
+    OptionalUser,
+    SessionDep,
+    cookie_serializer,
+    sign_session_cookie,
+)
+from service.errors import NotAuthenticated, TooManyAttempts
+from service.lab_tests.models import PermeabilityTest
+from service.projects.models import Project
+from service.samples.models import Sample
+from service.web.htmx import redirect, render, safe_next
+
+router = APIRouter(include_in_schema=False)
+
+# Main navigation per role; pages added later append here.
+NAV: dict[str, list[tuple[str, str]]] = {
+    Role.TECHNICIAN: [("/", "My tests"), ("/bench", "Bench")],
+    Role.REVIEWER: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
+    Role.LAB_MANAGER: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
+    Role.ADMIN: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
+    Role.CLIENT: [("/", "My projects")],
+}
+
+# Messages a redirect may ask the next page to show (a key, never free text from the URL).
+FLASHES: dict[str, tuple[str, str]] = {
+    "signed-out": ("ok", "You are signed out."),
+    "signed-in": ("ok", "You are signed in."),
+}
+
+ACTIVE_STATES = (TestState.PLANNED, TestState.RUNNING)
+SEARCH_LIMIT = 50
+
+
+def layout_context(request: Request, user: User | None, **extra: Any) -> dict[str, Any]:
+    """What base.html needs: the user, their navigation, flash messages, the current path."""
+    flash_key = request.query_params.get("flash", "")
+    return {
+        "user": user,
+        "nav": [{"href": href, "label": label} for href, label in NAV.get(user.role, [])]
+        if user
+        else [],
+        "current_path": request.url.path,
+        "flashes": [FLASHES[flash_key]] if flash_key in FLASHES else [],
+        **extra,
+    }
+
+
+# ---------- sign in and out ----------
+
+
+def _browser_session(request: Request, session: Session) -> AccessToken | None:
+    cookie = request.cookies.get(SESSION_COOKIE)
+    if not cookie:
+        return None
+    try:
+        raw = cookie_serializer().loads(cookie)
+    except BadSignature:
+        return None
+    found = find_live_token(session, raw, kind=TokenKind.SESSION) if isinstance(raw, str) else None
+    return found[0] if found else None
+
+
+def _sign_in_page(
+    request: Request, *, email: str = "", next_url: str = "/", error: str = "", status: int = 200
+) -> Response:
+    return render(
+        request,
+        "account/sign_in.html",
+        layout_context(request, None, email=email, next_url=next_url, error=error),
+        status_code=status,
+    )
+
+
+def _wait_message(exc: TooManyAttempts) -> str:
+    wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
+    if wait is None:
+        return "Too many failed sign-ins. Wait a few minutes, then try again."
+    return f"Too many failed sign-ins. Wait {wait} seconds, then try again."
+
+
+@router.get("/sign-in")
+def sign_in_form(
+    request: Request, user: OptionalUser, next_url: Annotated[str, Query(alias="next")] = "/"
+) -> Response:
+    """The sign-in form (already signed in: straight on to where you were going)."""
+    target = safe_next(next_url)
+    if user is not None:
+        return redirect(request, target)
+    return _sign_in_page(request, next_url=target)
+
+
+@router.post("/sign-in")
+def sign_in(
+    request: Request,
+    session: SessionDep,
+    email: Annotated[str, Form(max_length=254)] = "",
+    password: Annotated[str, Form(max_length=1024)] = "",
+    next_url: Annotated[str, Form(alias="next")] = "/",
+) -> Response:
+    """Check the password (with the accounts back-off and lock-out), then set the cookie."""
+    target = safe_next(next_url)
+    if not email.strip() or not password:
+        return _sign_in_page(
+            request,
+            email=email,
+            next_url=target,
+            error="Enter both your email address and your password.",
+            status=422,
+        )
+    try:
+        user = signin.check_credentials(session, email=email, password=password)
+    except NotAuthenticated:
+        # The failure count is on the user row: keep it although the sign-in is refused.
+        session.commit()
+        return _sign_in_page(
+            request,
+            email=email,
+            next_url=target,
+            error="That email address and password do not match an active account.",
+            status=401,
+        )
+    except TooManyAttempts as exc:
+        session.commit()
+        return _sign_in_page(
+            request,
+            email=email,
+            next_url=target,
+            error=_wait_message(exc),
+            status=429,
+        )
+    raw, _token = signin.start_session(session, user, replacing=_browser_session(request, session))
+    # Commit before answering: the request's session dependency commits only after the 303
+    # is sent, and the browser's next request could arrive before the new session exists.
+    session.commit()
+    response = redirect(request, target)
+    response.set_cookie(
+        SESSION_COOKIE,
+        sign_session_cookie(raw),
+        max_age=get_settings().session_hours * 3600,
+        httponly=True,
+        samesite="lax",
+        secure=request.url.scheme == "https",
+    )
+    return response
+
+
+@router.post("/sign-out")
+def sign_out(request: Request, auth: Authentication, session: SessionDep) -> Response:
+    """End this browser's session (a POST carrying the CSRF token, checked by `authenticate`)."""
+    if auth is not None:
+        user, token = auth
+        revoke_token(session, token, actor=user)
+        session.commit()  # before the redirect is sent, as in sign_in
+    response = redirect(request, "/sign-in?flash=signed-out")
+    response.delete_cookie(SESSION_COOKIE, httponly=True, samesite="lax")
+    return response
+
+
+# ---------- home ----------
+
+
+def _my_tests(session: Session, user: User) -> Sequence[Any]:
+    query = (
+        select(PermeabilityTest, Sample)
+        .join(Sample, col(Sample.id) == PermeabilityTest.sample_id)
+        .where(
+            PermeabilityTest.technician_id == user.id,
+            col(PermeabilityTest.state).in_([s.value for s in ACTIVE_STATES]),
+        )
+        .order_by(
+            col(PermeabilityTest.due_date).is_(None),
+            col(PermeabilityTest.due_date),
+            col(PermeabilityTest.id),
+        )
+    )
+    return session.exec(query).all()
+
+
+def _awaiting_review(session: Session, user: User) -> Sequence[Any]:
+    # Nobody reviews their own test, so those are left out of the reviewer's list.
+    query = (
+        select(PermeabilityTest, Sample)
+        .join(Sample, col(Sample.id) == PermeabilityTest.sample_id)
+        .where(
+            PermeabilityTest.state == TestState.SUBMITTED.value,
+            sa.or_(
+                col(PermeabilityTest.technician_id).is_(None),
+                col(PermeabilityTest.technician_id) != user.id,
+            ),
+        )
+        .order_by(col(PermeabilityTest.submitted_at), col(PermeabilityTest.id))
+    )
+    return session.exec(query).all()
+
+
+def _state_counts(session: Session) -> dict[str, int]:
+    rows = session.exec(
+        select(PermeabilityTest.state, func.count()).group_by(PermeabilityTest.state)
+    ).all()
+    counts = {state.value: 0 for state in TestState}
+    counts.update({state: int(count) for state, count in rows})
+    return counts
+
+
+def _client_projects(session: Session, user: User) -> Sequence[Any]:
+    query: Any = (
+        select(Project, func.count(col(Sample.id)))
+        .join(Sample, col(Sample.project_id) == Project.id, isouter=True)
+        .group_by(col(Project.id))
+        .order_by(col(Project.number))
+    )
+    return session.exec(scope_projects(query, user)).all()
+
+
+@router.get("/")
+def home(request: Request, user: OptionalUser, session: SessionDep) -> Response:
+    """The home page that fits the role; anonymous visitors go to the sign-in page."""
+    if user is None:
+        return redirect(request, "/sign-in")
+    context = layout_context(request, user)
+    if user.role == Role.TECHNICIAN:
+        context["my_tests"] = _my_tests(session, user)
+    elif user.role == Role.CLIENT:
+        context["projects"] = _client_projects(session, user)
+    else:
+        context["counts"] = _state_counts(session)
+        if user.role in (Role.REVIEWER, Role.LAB_MANAGER):
+            context["awaiting_review"] = _awaiting_review(session, user)
+    return render(request, "home/home.html", context)
+
+
+# ---------- search ----------
+
+
+def find_samples(session: Session, user: User, text: str) -> Sequence[Sample]:
+    """Samples whose lab ID or client's sample ID is `text` (any case), that `user` may see."""
+    wanted = text.strip().lower()
+    query = (
+        select(Sample)
+        .join(Project, col(Project.id) == Sample.project_id)
+        .where(
+            sa.or_(
+                func.lower(Sample.lab_id) == wanted,
+                func.lower(Sample.client_sample_id) == wanted,
+            )
+        )
+        .order_by(col(Sample.lab_id))
+        .limit(SEARCH_LIMIT)
+    )
+    return session.exec(scope_projects(query, user)).all()
+
+
+@router.get("/search")
+def search(
+    request: Request,
+    user: CurrentUser,
+    session: SessionDep,
+    q: Annotated[str, Query(max_length=100)] = "",
+) -> Response:
+    """Open the sample a typed or scanned ID names; several matches are listed, none says so.
+
+    A GET, not a POST: a search changes nothing and its URL can be bookmarked or shared.
+    """
+    text = q.strip()
+    samples = find_samples(session, user, text) if text else []
+    exact = [s for s in samples if s.lab_id.lower() == text.lower()]
+    if len(exact) == 1 or len(samples) == 1:
+        sample = exact[0] if exact else samples[0]
+        return redirect(request, f"/samples/{sample.id}")
+    context = layout_context(request, user, search_query=text, samples=samples)
+    return render(
+        request,
+        "search/results.html",
+        context,
+        fragment="search/_results.html",
+        status_code=200 if samples or not text else 404,
+    )
