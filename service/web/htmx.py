@@ -11,7 +11,6 @@ with 303 See Other.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Annotated, Any
@@ -19,16 +18,14 @@ from typing import Annotated, Any
 from fastapi import Depends, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
-from markupsafe import Markup
 
 from service import __version__
 from service.config import get_settings
 from service.db import PROJECT_ROOT
+from service.web.display import install as install_display_filters
 
 HTMX_VERSION = "4.0.1"
 HTMX_SCRIPT = f"/static/vendor/htmx-{HTMX_VERSION}.min.js"
-
-_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
 @dataclass(frozen=True, slots=True)
@@ -63,35 +60,10 @@ def htmx_details(request: Request) -> HtmxDetails:
 HtmxDep = Annotated[HtmxDetails, Depends(htmx_details)]
 
 
-def sci(value: float | None, digits: int = 3) -> Markup | str:
-    """A figure in scientific notation with a real superscript: 1.76 × 10⁻⁹."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    if value == 0:
-        return "0"
-    exponent = math.floor(math.log10(abs(value)))
-    if -2 <= exponent <= 3:
-        return f"{value:.{digits}g}"
-    mantissa = value / 10**exponent
-    if round(mantissa, digits - 1) >= 10:
-        mantissa /= 10
-        exponent += 1
-    text = f"{mantissa:.{digits - 1}f} × 10{str(exponent).translate(_SUPERSCRIPT)}"
-    return Markup('<span class="sci">{}</span>').format(text)
-
-
-def number(value: float | None, digits: int = 3) -> str:
-    """A plain figure to `digits` significant digits, or a dash when there is none."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    return f"{value:.{digits}g}"
-
-
 def _make_templates() -> Jinja2Templates:
     templates = Jinja2Templates(directory=PROJECT_ROOT / "templates")
     env = templates.env
-    env.filters["sci"] = sci
-    env.filters["number"] = number
+    install_display_filters(env.filters)
     env.globals["htmx_script"] = HTMX_SCRIPT
     env.globals["app_version"] = __version__
     env.globals["lab_name"] = get_settings().lab_name

@@ -37,10 +37,28 @@ router = APIRouter(include_in_schema=False)
 
 # Main navigation per role; pages added later append here.
 NAV: dict[str, list[tuple[str, str]]] = {
-    Role.TECHNICIAN: [("/", "My tests"), ("/bench", "Bench")],
-    Role.REVIEWER: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
-    Role.LAB_MANAGER: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
-    Role.ADMIN: [("/", "Home"), ("/queue", "Queue"), ("/bench", "Bench")],
+    Role.TECHNICIAN: [("/", "My tests"), ("/reception", "Receive"), ("/bench", "Bench")],
+    Role.REVIEWER: [
+        ("/", "Home"),
+        ("/queue", "Queue"),
+        ("/projects", "Projects"),
+        ("/bench", "Bench"),
+    ],
+    Role.LAB_MANAGER: [
+        ("/", "Home"),
+        ("/queue", "Queue"),
+        ("/reception", "Receive"),
+        ("/projects", "Projects"),
+        ("/apparatus", "Apparatus"),
+        ("/bench", "Bench"),
+    ],
+    Role.ADMIN: [
+        ("/", "Home"),
+        ("/queue", "Queue"),
+        ("/reception", "Receive"),
+        ("/projects", "Projects"),
+        ("/apparatus", "Apparatus"),
+    ],
     Role.CLIENT: [("/", "My projects")],
 }
 
@@ -63,6 +81,7 @@ def layout_context(request: Request, user: User | None, **extra: Any) -> dict[st
         if user
         else [],
         "current_path": request.url.path,
+        "units": user.display_units if user else "si",
         "flashes": [FLASHES[flash_key]] if flash_key in FLASHES else [],
         **extra,
     }
