@@ -7,7 +7,8 @@ from fastapi import FastAPI, Request
 from fastapi.responses import Response
 from fastapi.testclient import TestClient
 
-from service.web.htmx import HtmxDep, htmx_details, number, redirect, render, safe_next, sci
+from service.web.display import number, sci
+from service.web.htmx import HtmxDep, htmx_details, redirect, render, safe_next
 
 
 @pytest.fixture
