@@ -480,7 +480,7 @@ def _make_test(
         sample.id,
         TestCreate(
             method=plan.method,
-            standard=plan.standard,  # type: ignore[arg-type]
+            standard=plan.standard,
             technician_id=technician.id,
             apparatus_ids=apparatus_ids,
             cell_pressure="550 kPa" if flexible else None,
