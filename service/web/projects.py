@@ -1,0 +1,278 @@
+"""Projects: the list (lab staff), a project's page (samples with their state and k20,
+locations, exports, reception), and for lab managers the forms to open a project and to add
+its locations. A client sees its own organisation's projects only; others answer 404."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import Response
+from pydantic import ValidationError
+from sqlmodel import Session, col, select
+
+from service.access import is_client
+from service.accounts.models import Organisation, User
+from service.accounts.service import list_organisations
+from service.common import LocationKind, OrganisationKind, Role, TestState
+from service.deps import CurrentUser, LabStaff, Manager, SessionDep
+from service.errors import Conflict, InvalidInput
+from service.lab_tests.models import PermeabilityTest
+from service.projects.service import (
+    LocationCreate,
+    ProjectCreate,
+    add_location,
+    create_project,
+    get_project,
+    list_locations,
+    list_projects,
+)
+from service.samples.service import list_samples
+from service.web.htmx import redirect, render
+from service.web.pages import layout_context
+from service.web.reception import field_errors, pydantic_problems, simple_name, with_unit
+
+router = APIRouter(prefix="/projects", include_in_schema=False)
+
+PAGE_SIZE = 100
+SAMPLE_LIMIT = 500
+MANAGERS = frozenset({Role.LAB_MANAGER, Role.ADMIN})
+RECEIVERS = frozenset({Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
+CLIENT_RESULT_STATES = frozenset({TestState.ISSUED.value, TestState.SUPERSEDED.value})
+PROJECT_FIELDS = ("client_id", "number", "name", "site", "turnaround_days", "spec_k_max")
+LOCATION_FIELDS = (
+    "name",
+    "kind",
+    "easting_m",
+    "northing_m",
+    "coordinate_system",
+    "ground_level",
+    "ground_level_unit",
+)
+LOCATION_KINDS = tuple((k.value, k.value.replace("_", " ").capitalize()) for k in LocationKind)
+LEVEL_UNITS = (("m", "m"), ("ft", "ft"))
+
+
+def _client_choices(session: Session) -> list[tuple[str, str]]:
+    clients, _total = list_organisations(session, limit=500, offset=0, kind=OrganisationKind.CLIENT)
+    return [(str(c.id), c.name) for c in clients]
+
+
+def _project_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
+    form = dict.fromkeys(PROJECT_FIELDS, "")
+    form["turnaround_days"] = "10"
+    form.update({k: v for k, v in (values or {}).items() if k in PROJECT_FIELDS})
+    return form
+
+
+def list_context(
+    request: Request,
+    session: Session,
+    user: User,
+    *,
+    search: str = "",
+    form: Mapping[str, str] | None = None,
+    errors: Mapping[str, Any] | None = None,
+    general: list[str] | None = None,
+) -> dict[str, Any]:
+    projects, total = list_projects(
+        session, user=user, search=search or None, limit=PAGE_SIZE, offset=0
+    )
+    choices = _client_choices(session)
+    return layout_context(
+        request,
+        user,
+        projects=projects,
+        total=total,
+        search=search,
+        client_names={int(key): name for key, name in choices},
+        can_create=user.role in MANAGERS,
+        client_choices=choices,
+        project_form=_project_form(form),
+        project_errors=errors or {},
+        project_general=general or [],
+    )
+
+
+@router.get("")
+def projects_page(
+    request: Request,
+    user: LabStaff,
+    session: SessionDep,
+    q: Annotated[str, Query(max_length=100)] = "",
+) -> Response:
+    """Projects, newest first; a search matches number, name or site."""
+    context = list_context(request, session, user, search=q.strip())
+    return render(request, "projects/list.html", context, fragment="projects/_list.html")
+
+
+@router.post("")
+async def project_create(request: Request, user: Manager, session: SessionDep) -> Response:
+    """Open a project (lab managers); the browser then goes to its page. A refusal answers
+    with the form, each message beside its field and everything typed kept."""
+    posted = await request.form()
+    values = {name: str(posted.get(name, "")) for name in PROJECT_FIELDS}
+    payload: dict[str, Any] = {k: v.strip() for k, v in values.items() if v.strip()}
+    errors: dict[str, Any] = {}
+    general: list[str] = []
+    status = 422
+    name_of = simple_name(PROJECT_FIELDS)
+    try:
+        project = create_project(session, ProjectCreate.model_validate(payload), actor=user)
+    except ValidationError as exc:
+        errors, general = field_errors(pydantic_problems(exc), name_of)
+    except InvalidInput as exc:
+        errors, general = field_errors(exc.detail or [], name_of)
+    except Conflict as exc:
+        status = 409
+        errors = {"number": {"msg": exc.message.split(": ", 1)[-1], "kind": "duplicate"}}
+    else:
+        return redirect(request, f"/projects/{project.id}")
+    context = list_context(request, session, user, form=values, errors=errors, general=general)
+    return render(
+        request, "projects/list.html", context, fragment="projects/_create.html", status_code=status
+    )
+
+
+# --- one project -----------------------------------------------------------------------------
+
+
+def _location_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
+    form = dict.fromkeys(LOCATION_FIELDS, "")
+    form["kind"] = LocationKind.BOREHOLE.value
+    form["ground_level_unit"] = "m"
+    form.update({k: v for k, v in (values or {}).items() if k in LOCATION_FIELDS})
+    return form
+
+
+def _tests_by_sample(session: Session, sample_ids: list[int]) -> dict[int, list[PermeabilityTest]]:
+    out: dict[int, list[PermeabilityTest]] = {sample_id: [] for sample_id in sample_ids}
+    if sample_ids:
+        rows = session.exec(
+            select(PermeabilityTest)
+            .where(col(PermeabilityTest.sample_id).in_(sample_ids))
+            .order_by(col(PermeabilityTest.series), col(PermeabilityTest.revision))
+        ).all()
+        for test in rows:
+            out[test.sample_id].append(test)
+    return out
+
+
+def _latest_k(tests: list[PermeabilityTest], client: bool) -> PermeabilityTest | None:
+    """The newest test with a stored k20 the viewer may see (clients: certified only)."""
+    for test in reversed(tests):
+        if test.result_k_ref_m_per_s is None:
+            continue
+        if client and test.state not in CLIENT_RESULT_STATES:
+            continue
+        return test
+    return None
+
+
+def project_context(
+    request: Request,
+    session: Session,
+    user: User,
+    project_id: int,
+    *,
+    location_form: Mapping[str, str] | None = None,
+    location_errors: Mapping[str, Any] | None = None,
+    location_general: list[str] | None = None,
+    saved: str = "",
+) -> dict[str, Any]:
+    project = get_project(session, project_id, user=user)
+    assert project.id is not None
+    client_view = is_client(user)
+    locations, _n = list_locations(session, project.id, user=user, limit=500, offset=0)
+    samples, sample_total = list_samples(
+        session, user=user, project_id=project.id, limit=SAMPLE_LIMIT, offset=0
+    )
+    samples = sorted(samples, key=lambda s: s.lab_id)
+    tests = _tests_by_sample(session, [s.id for s in samples if s.id is not None])
+    rows = [
+        {
+            "sample": sample,
+            "tests": tests.get(sample.id or 0, []),
+            "result": _latest_k(tests.get(sample.id or 0, []), client_view),
+        }
+        for sample in samples
+    ]
+    client = session.get(Organisation, project.client_id)
+    return layout_context(
+        request,
+        user,
+        project=project,
+        client_name=client.name if client else "",
+        locations=locations,
+        location_names={loc.id: loc.name for loc in locations},
+        rows=rows,
+        sample_total=sample_total,
+        client_view=client_view,
+        can_receive=user.role in RECEIVERS,
+        can_add_location=user.role in MANAGERS,
+        location_kinds=LOCATION_KINDS,
+        level_units=LEVEL_UNITS,
+        location_form=_location_form(location_form),
+        location_errors=location_errors or {},
+        location_general=location_general or [],
+        saved=saved,
+    )
+
+
+@router.get("/{project_id}")
+def project_page(
+    project_id: int, request: Request, user: CurrentUser, session: SessionDep
+) -> Response:
+    """A project: its samples with their tests' state and k20, locations and exports."""
+    context = project_context(request, session, user, project_id)
+    return render(request, "projects/project.html", context, fragment="projects/_project.html")
+
+
+@router.post("/{project_id}/locations")
+async def location_create(
+    project_id: int, request: Request, user: Manager, session: SessionDep
+) -> Response:
+    """Add a location (lab managers). htmx gets the locations section back; a refusal keeps
+    everything typed with the message beside its field."""
+    posted = await request.form()
+    values = {name: str(posted.get(name, "")) for name in LOCATION_FIELDS}
+    payload: dict[str, Any] = {
+        k: v.strip()
+        for k, v in values.items()
+        if v.strip() and k not in ("ground_level", "ground_level_unit")
+    }
+    level = with_unit(values["ground_level"], values["ground_level_unit"] or "m")
+    if level is not None:
+        payload["ground_level"] = level
+    errors: dict[str, Any] = {}
+    general: list[str] = []
+    status = 422
+    name_of = simple_name(LOCATION_FIELDS)
+    try:
+        add_location(session, project_id, LocationCreate.model_validate(payload), actor=user)
+    except ValidationError as exc:
+        errors, general = field_errors(pydantic_problems(exc), name_of)
+    except InvalidInput as exc:
+        errors, general = field_errors(exc.detail or [], name_of)
+    except Conflict as exc:
+        status = 409
+        errors = {"name": {"msg": exc.message.split(": ", 1)[-1], "kind": "duplicate"}}
+    refused = bool(errors or general)
+    context = project_context(
+        request,
+        session,
+        user,
+        project_id,
+        location_form=values if refused else None,
+        location_errors=errors,
+        location_general=general,
+        saved="" if refused else "location",
+    )
+    return render(
+        request,
+        "projects/project.html",
+        context,
+        fragment="projects/_locations.html",
+        status_code=status if refused else 200,
+    )

@@ -1,0 +1,582 @@
+"""Reception: receive a batch of samples against a project from typed rows, or from a pasted or
+uploaded sample schedule (CSV or XLSX), checked in full before anything is stored.
+
+Every render of the form carries a fresh idempotency key in a hidden field; it stays with the
+form through checks and refusals, so a double-tapped or retried save stores the batch once.
+The small helpers that turn service refusals into messages beside fields are shared by the
+sample and project pages."""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+import uuid
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import Response
+from pydantic import ValidationError
+from sqlmodel import Session
+from starlette.datastructures import UploadFile as StarletteUpload
+
+from service.accounts.models import User
+from service.common import Priority, SampleType
+from service.config import get_settings
+from service.deps import Reception, SessionDep
+from service.errors import Conflict, InvalidInput
+from service.exchange.files import FileTooLarge, Table, read_limited, read_table
+from service.exchange.imports import SCHEDULE_COLUMNS, SchedulePreview, check_schedule
+from service.projects.models import Location, Project
+from service.projects.service import get_project, list_locations, list_projects
+from service.samples.service import SampleBatch, receive_samples, receive_samples_once
+from service.web.htmx import render
+from service.web.pages import layout_context
+
+router = APIRouter(prefix="/reception", include_in_schema=False)
+
+MAX_ROWS = 60
+DEFAULT_ROWS = 3
+PROJECT_CHOICES = 200
+DEPTH_UNITS = (("m", "m"), ("cm", "cm"), ("mm", "mm"), ("ft", "ft"), ("in", "in"))
+SAMPLE_TYPES = tuple((t.value, t.value.capitalize()) for t in SampleType)
+PRIORITIES = tuple((p.value, p.value.capitalize()) for p in Priority)
+SEAL_CHOICES = (("", "Not recorded"), ("yes", "Yes, intact"), ("no", "No, broken"))
+# Each row's form fields and the value a fresh row starts with.
+ROW_DEFAULTS: dict[str, str] = {
+    "client_sample_id": "",
+    "location": "",
+    "depth_top": "",
+    "depth_bottom": "",
+    "depth_unit": "m",
+    "sample_type": SampleType.TUBE.value,
+    "description": "",
+    "condition": "",
+    "seal_intact": "",
+    "storage_place": "",
+    "priority": Priority.NORMAL.value,
+}
+ROW_LABELS = {
+    "client_sample_id": "Client's sample ID",
+    "location": "Location",
+    "location_id": "Location",
+    "depth_top": "Depth, top",
+    "depth_bottom": "Depth, bottom",
+    "depth_unit": "Depth unit",
+    "sample_type": "Type",
+    "description": "Description",
+    "condition": "Condition on arrival",
+    "seal_intact": "Seal intact",
+    "storage_place": "Storage place",
+    "priority": "Priority",
+}
+# Field names inside row messages, in the words on the form.
+_ROW_WORDS = {"depth_bottom": "bottom depth", "depth_top": "top depth"}
+# A service message opens with the field's path ("samples[0].depth_top: ..."): beside the
+# field the label already says which one it is.
+_PATH_PREFIX = re.compile(r"^[\w.\[\]]+: ")
+
+
+# --- shared helpers (also used by the sample and project pages) ------------------------------
+
+
+def new_key() -> str:
+    """A fresh idempotency key for one rendering of a form."""
+    return uuid.uuid4().hex
+
+
+def beside_field(msg: str) -> str:
+    """A service message shown next to its field: without the leading field path."""
+    text = _PATH_PREFIX.sub("", msg, count=1)
+    return text[:1].upper() + text[1:]
+
+
+def with_unit(typed: str, unit: str) -> str | None:
+    """A number typed into a numeric field, with the unit chosen beside it; text that already
+    carries its own unit ('5 ft') is sent as typed; nothing typed is None."""
+    text = typed.strip()
+    if not text:
+        return None
+    try:
+        float(text)
+    except ValueError:
+        return text
+    return f"{text} {unit}"
+
+
+def pydantic_problems(exc: ValidationError, prefix: tuple[str | int, ...] = ()) -> list[dict]:
+    """A schema's refusals in the services' shape: loc, msg (value and what is accepted)."""
+    out = []
+    for error in exc.errors():
+        loc = [*prefix, *error["loc"]]
+        shown = error.get("input")
+        typed = f" (you typed '{shown}')" if isinstance(shown, str | int | float) else ""
+        out.append({"loc": loc, "msg": f"{error['msg']}{typed}", "type": error["type"]})
+    return out
+
+
+def field_errors(
+    detail: Iterable[Mapping[str, Any]], name_of: Any
+) -> tuple[dict[str, dict[str, str]], list[str]]:
+    """Refusals split into messages beside form fields and messages for the whole form.
+
+    `name_of(loc)` gives the form field a refusal's location belongs to, or None."""
+    beside: dict[str, dict[str, str]] = {}
+    general: list[str] = []
+    for item in detail:
+        loc = [part for part in item.get("loc", []) if part != "body"]
+        msg = str(item.get("msg", ""))
+        name = name_of(loc)
+        if name is None:
+            general.append(msg)
+            continue
+        entry = {"msg": beside_field(msg), "kind": str(item.get("type", ""))}
+        if name in beside:
+            beside[name]["msg"] += " " + entry["msg"]
+        else:
+            beside[name] = entry
+    return beside, general
+
+
+def simple_name(fields: Iterable[str], aliases: Mapping[str, str] | None = None) -> Any:
+    """A `name_of` for flat forms: the first part of the location if it is one of `fields`."""
+    known = set(fields)
+    renamed = dict(aliases or {})
+
+    def name_of(loc: list[Any]) -> str | None:
+        if not loc:
+            return None
+        first = renamed.get(str(loc[0]), str(loc[0]))
+        return first if first in known else None
+
+    return name_of
+
+
+# --- the reception form ----------------------------------------------------------------------
+
+
+@dataclass(slots=True)
+class ReceptionForm:
+    """The reception form exactly as typed."""
+
+    project_id: int | None = None
+    entry: str = "rows"
+    delivered_by: str = ""
+    rows: list[dict[str, str]] = field(default_factory=list)
+    schedule: str = ""
+    idempotency_key: str = field(default_factory=new_key)
+
+    def filled(self) -> list[int]:
+        """Rows with anything changed from a fresh row (blank rows are not received)."""
+        return [
+            index
+            for index, row in enumerate(self.rows)
+            if any(row.get(name, "").strip() != default for name, default in ROW_DEFAULTS.items())
+        ]
+
+
+def blank_rows(count: int) -> list[dict[str, str]]:
+    return [dict(ROW_DEFAULTS) for _ in range(count)]
+
+
+def read_form(form: Mapping[str, Any]) -> ReceptionForm:
+    """The form from posted fields; unknown row fields are ignored, values kept as typed."""
+    try:
+        project_id: int | None = int(str(form.get("project_id", "")))
+    except ValueError:
+        project_id = None
+    try:
+        count = int(str(form.get("row_count", DEFAULT_ROWS)))
+    except ValueError:
+        count = DEFAULT_ROWS
+    count = max(1, min(MAX_ROWS, count))
+    rows = blank_rows(count)
+    for key, value in form.items():
+        parts = key.split(".")
+        if len(parts) == 3 and parts[0] == "rows" and parts[1].isdigit() and isinstance(value, str):
+            index, name = int(parts[1]), parts[2]
+            if index < count and name in ROW_DEFAULTS:
+                rows[index][name] = value
+    key = str(form.get("idempotency_key", "")).strip()
+    return ReceptionForm(
+        project_id=project_id,
+        entry="schedule" if form.get("entry") == "schedule" else "rows",
+        delivered_by=str(form.get("delivered_by", "")),
+        rows=rows,
+        schedule=str(form.get("schedule", "")),
+        idempotency_key=key or new_key(),
+    )
+
+
+def batch_payload(form: ReceptionForm) -> tuple[dict[str, Any], list[int]]:
+    """The batch in the reception service's shape, and the form row of each sample sent."""
+    indexes = form.filled()
+    samples = []
+    for index in indexes:
+        row = form.rows[index]
+        sample: dict[str, Any] = {
+            name: row[name].strip()
+            for name in ("client_sample_id", "description", "condition", "storage_place")
+        }
+        sample["sample_type"] = row["sample_type"]
+        sample["priority"] = row["priority"]
+        if row["location"].strip():
+            sample["location_id"] = row["location"].strip()
+        top = with_unit(row["depth_top"], row["depth_unit"])
+        bottom = with_unit(row["depth_bottom"], row["depth_unit"])
+        if top is not None:
+            sample["depth_top"] = top
+        if bottom is not None:
+            sample["depth_bottom"] = bottom
+        seal = {"yes": True, "no": False}.get(row["seal_intact"])
+        if seal is not None:
+            sample["seal_intact"] = seal
+        samples.append(sample)
+    payload = {"delivered_by": form.delivered_by.strip(), "samples": samples}
+    return payload, indexes
+
+
+def row_message(msg: str) -> str:
+    """A row refusal with the field names the form shows ('bottom depth', not depth_bottom)."""
+    for name, words in _ROW_WORDS.items():
+        msg = msg.replace(name, words)
+    return msg
+
+
+def _row_problems(detail: Iterable[Mapping[str, Any]]) -> list[dict[str, Any]]:
+    return [{**item, "msg": row_message(str(item.get("msg", "")))} for item in detail]
+
+
+def _row_name(indexes: list[int]) -> Any:
+    def name_of(loc: list[Any]) -> str | None:
+        if loc[:1] == ["delivered_by"]:
+            return "delivered_by"
+        if len(loc) >= 3 and loc[0] == "samples" and isinstance(loc[1], int):
+            row = indexes[loc[1]] if loc[1] < len(indexes) else loc[1]
+            name = "location" if loc[2] == "location_id" else str(loc[2])
+            if name in ROW_DEFAULTS:
+                return f"rows.{row}.{name}"
+        return None
+
+    return name_of
+
+
+@dataclass(slots=True)
+class Outcome:
+    """What the form shows after a check or a save."""
+
+    errors: dict[str, dict[str, str]] = field(default_factory=dict)
+    general: list[str] = field(default_factory=list)
+    preview: SchedulePreview | None = None
+    table: Table | None = None
+    checked: bool = False
+    received: dict[str, Any] | None = None
+    conflict: bool = False
+
+    @property
+    def refused(self) -> bool:
+        return bool(self.errors or self.general or (self.preview and self.preview.errors))
+
+
+def _rows_batch(form: ReceptionForm, outcome: Outcome) -> tuple[SampleBatch | None, list[int]]:
+    payload, indexes = batch_payload(form)
+    if not indexes:
+        outcome.general.append("Fill in at least one sample row; empty rows are left out.")
+        return None, indexes
+    try:
+        return SampleBatch.model_validate(payload), indexes
+    except ValidationError as exc:
+        errors, general = field_errors(_row_problems(pydantic_problems(exc)), _row_name(indexes))
+        outcome.errors.update(errors)
+        outcome.general.extend(general)
+        return None, indexes
+
+
+def check_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
+    """Everything the save would refuse, found by receiving the batch in a savepoint that is
+    always rolled back; stores nothing."""
+    outcome = Outcome(checked=True)
+    batch, indexes = _rows_batch(form, outcome)
+    if batch is None or form.project_id is None:
+        return outcome
+    savepoint = session.begin_nested()
+    try:
+        receive_samples(session, form.project_id, batch, actor=user)
+    except InvalidInput as exc:
+        errors, general = field_errors(_row_problems(exc.detail or []), _row_name(indexes))
+        outcome.errors.update(errors)
+        outcome.general.extend(general)
+    finally:
+        savepoint.rollback()
+    return outcome
+
+
+def _save(
+    session: Session, form: ReceptionForm, batch: SampleBatch, user: User, outcome: Outcome
+) -> None:
+    assert form.project_id is not None
+    try:
+        _status, answer, _replayed = receive_samples_once(
+            session, form.project_id, batch, actor=user, idempotency_key=form.idempotency_key
+        )
+    except Conflict as exc:
+        # The key was spent on another batch (the form was saved, then changed): a new key
+        # lets this batch through on the next tap, after the user has seen why.
+        form.idempotency_key = new_key()
+        outcome.conflict = True
+        outcome.general.append(
+            f"This form was already used to receive a different batch ({exc.message}). "
+            "Check the rows, then save again to receive them as a new batch."
+        )
+        return
+    outcome.received = answer
+
+
+def save_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
+    outcome = Outcome(checked=True)
+    batch, indexes = _rows_batch(form, outcome)
+    if batch is None:
+        return outcome
+    try:
+        _save(session, form, batch, user, outcome)
+    except InvalidInput as exc:
+        errors, general = field_errors(_row_problems(exc.detail or []), _row_name(indexes))
+        outcome.errors.update(errors)
+        outcome.general.extend(general)
+    return outcome
+
+
+# --- schedules -------------------------------------------------------------------------------
+
+
+def table_as_csv(table: Table) -> str:
+    """An uploaded table as CSV text, so it can be corrected in place and saved from the form."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(table.header)
+    writer.writerows(table.rows)
+    return out.getvalue()
+
+
+def _schedule_table(form: ReceptionForm, outcome: Outcome) -> Table | None:
+    if not form.schedule.strip():
+        outcome.errors["schedule"] = {
+            "msg": "Paste the schedule here (a header row, then one row per sample), "
+            "or choose a CSV or XLSX file.",
+            "kind": "missing",
+        }
+        return None
+    try:
+        return read_table(form.schedule.encode("utf-8"), "schedule.csv", field="schedule")
+    except InvalidInput as exc:
+        errors, general = field_errors(exc.detail or [], simple_name(["schedule"]))
+        outcome.errors.update(errors)
+        outcome.general.extend(general)
+        return None
+
+
+def _check_schedule(
+    session: Session, form: ReceptionForm, user: User, outcome: Outcome
+) -> SchedulePreview | None:
+    table = _schedule_table(form, outcome)
+    if table is None or form.project_id is None:
+        return None
+    outcome.table = table
+    preview = check_schedule(
+        session, form.project_id, table, actor=user, delivered_by=form.delivered_by.strip()
+    )
+    outcome.preview = preview
+    return preview
+
+
+def schedule_batch(preview: SchedulePreview, delivered_by: str) -> SampleBatch:
+    samples = [{k: v for k, v in row.items() if k != "row"} for row in preview.rows]
+    return SampleBatch.model_validate({"delivered_by": delivered_by, "samples": samples})
+
+
+def save_schedule(session: Session, form: ReceptionForm, user: User) -> Outcome:
+    outcome = Outcome(checked=True)
+    preview = _check_schedule(session, form, user, outcome)
+    if preview is None or preview.errors:
+        return outcome
+    try:
+        _save(session, form, schedule_batch(preview, form.delivered_by.strip()), user, outcome)
+    except InvalidInput as exc:
+        outcome.general.extend(str(item.get("msg", "")) for item in exc.detail or [])
+    return outcome
+
+
+@dataclass(slots=True)
+class PreviewRow:
+    """One row of the schedule as typed, with its problems per column."""
+
+    number: int
+    cells: list[str]
+    problems: dict[str, list[str]]
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
+def preview_rows(table: Table, preview: SchedulePreview) -> tuple[list[PreviewRow], list[str]]:
+    """Every non-blank row of the schedule with its cell problems; problems with no cell."""
+    by_cell: dict[tuple[int, str], list[str]] = {}
+    general: list[str] = []
+    for item in preview.errors:
+        loc = item.get("loc", [])
+        if len(loc) == 5 and loc[0] == "file" and loc[1] == "row" and loc[3] == "column":
+            if loc[2] == 1:
+                general.append(str(item["msg"]))
+            else:
+                msg = str(item["msg"]).split(": ", 1)[-1]
+                by_cell.setdefault((int(loc[2]), str(loc[4])), []).append(msg[:1].upper() + msg[1:])
+        else:
+            general.append(str(item.get("msg", "")))
+    rows = []
+    for offset, cells in enumerate(table.rows):
+        if not any(cell.strip() for cell in cells):
+            continue
+        number = table.first_row + offset
+        problems = {
+            column: by_cell[(number, column)]
+            for column in table.header
+            if (number, column) in by_cell
+        }
+        rows.append(PreviewRow(number=number, cells=cells, problems=problems))
+    return rows, general
+
+
+# --- rendering -------------------------------------------------------------------------------
+
+
+def _locations(session: Session, project: Project, user: User) -> list[Location]:
+    assert project.id is not None
+    locations, _total = list_locations(session, project.id, user=user, limit=500, offset=0)
+    return locations
+
+
+def _context(
+    request: Request,
+    session: Session,
+    user: User,
+    form: ReceptionForm,
+    outcome: Outcome | None = None,
+) -> dict[str, Any]:
+    outcome = outcome or Outcome()
+    project = None
+    projects: list[Project] = []
+    locations: list[Location] = []
+    if form.project_id is not None:
+        project = get_project(session, form.project_id, user=user)
+        locations = _locations(session, project, user)
+    else:
+        projects, _total = list_projects(session, user=user, limit=PROJECT_CHOICES, offset=0)
+    preview_table: list[PreviewRow] = []
+    preview_general: list[str] = []
+    if outcome.preview is not None and outcome.table is not None:
+        preview_table, preview_general = preview_rows(outcome.table, outcome.preview)
+    received_ids = [s["id"] for s in (outcome.received or {}).get("samples", [])]
+    return layout_context(
+        request,
+        user,
+        form=form,
+        outcome=outcome,
+        project=project,
+        project_choices=[(str(p.id), f"{p.number} · {p.name}") for p in projects],
+        locations=[(str(loc.id), loc.name) for loc in locations],
+        depth_units=DEPTH_UNITS,
+        sample_types=SAMPLE_TYPES,
+        priorities=PRIORITIES,
+        seal_choices=SEAL_CHOICES,
+        row_labels=ROW_LABELS,
+        max_rows=MAX_ROWS,
+        schedule_columns=SCHEDULE_COLUMNS,
+        preview_table=preview_table,
+        preview_general=preview_general,
+        labels_url="/samples/labels?ids=" + ",".join(str(i) for i in received_ids),
+    )
+
+
+def _answer(
+    request: Request, context: dict[str, Any], outcome: Outcome, status: int | None = None
+) -> Response:
+    if status is None:
+        status = (
+            201
+            if outcome.received
+            else 409
+            if outcome.conflict
+            else 422
+            if outcome.refused
+            else 200
+        )
+    return render(
+        request,
+        "reception/reception.html",
+        context,
+        fragment="reception/_work.html",
+        status_code=status,
+    )
+
+
+@router.get("")
+def reception_page(
+    request: Request,
+    user: Reception,
+    session: SessionDep,
+    project_id: Annotated[str, Query(max_length=20)] = "",
+    entry: Annotated[str, Query(max_length=20)] = "rows",
+) -> Response:
+    """Choose a project, then type the samples or paste / upload their schedule."""
+    form = ReceptionForm(
+        project_id=int(project_id) if project_id.strip().isdigit() else None,
+        entry="schedule" if entry == "schedule" else "rows",
+        rows=blank_rows(DEFAULT_ROWS),
+    )
+    return _answer(request, _context(request, session, user, form), Outcome(), 200)
+
+
+@router.post("")
+async def reception_submit(request: Request, user: Reception, session: SessionDep) -> Response:
+    """Check, add a row, or save. A refusal answers 422 with everything typed kept and each
+    message beside its field (or its schedule cell); a save answers 201 with the lab IDs."""
+    async with request.form() as posted:
+        form = read_form(posted)
+        action = str(posted.get("action", "check"))
+        upload = posted.get("schedule_file")
+        file_error = ""
+        if (
+            form.entry == "schedule"
+            and isinstance(upload, StarletteUpload)
+            and upload.filename
+            and form.project_id is not None
+        ):
+            try:
+                data = await read_limited(upload, get_settings().max_body_bytes, "schedule_file")
+                form.schedule = table_as_csv(read_table(data, upload.filename, field="file"))
+            except (InvalidInput, FileTooLarge) as exc:
+                detail = exc.detail if isinstance(exc.detail, list) else []
+                file_error = "; ".join(str(i.get("msg", "")) for i in detail) or exc.message
+    if form.project_id is None:
+        outcome = Outcome(general=["Choose the project the samples arrived for."])
+        return _answer(request, _context(request, session, user, form), outcome)
+    if form.entry == "schedule":
+        outcome = Outcome(checked=True)
+        if file_error:
+            outcome.errors["schedule_file"] = {"msg": beside_field(file_error), "kind": "file"}
+            return _answer(request, _context(request, session, user, form, outcome), outcome)
+        if action == "save":
+            outcome = save_schedule(session, form, user)
+        else:
+            _check_schedule(session, form, user, outcome)
+        return _answer(request, _context(request, session, user, form, outcome), outcome)
+    if action == "add_row":
+        form.rows.extend(blank_rows(1 if len(form.rows) < MAX_ROWS else 0))
+        return _answer(request, _context(request, session, user, form), Outcome(), 200)
+    outcome = (
+        save_rows(session, form, user) if action == "save" else check_rows(session, form, user)
+    )
+    return _answer(request, _context(request, session, user, form, outcome), outcome)

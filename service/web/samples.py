@@ -1,0 +1,302 @@
+"""The sample page (details, tests, custody timeline, audit history, custody and test-request
+forms) and printable sample labels with a QR code of each lab ID, drawn on the server."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from typing import Annotated, Any
+
+import segno
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import Response
+from markupsafe import Markup
+from pydantic import ValidationError
+from sqlmodel import Session
+
+from service.access import is_client
+from service.accounts.models import User
+from service.audit.service import history
+from service.common import CustodyKind, Role, TestState
+from service.custody.service import CustodyEventIn, add_custody_event, custody_timeline
+from service.deps import CurrentUser, LabStaff, SessionDep
+from service.errors import InvalidInput, PermissionDenied, ServiceError
+from service.lab_tests.schemas import REFERENCE_TEMPERATURES_C, TestCreate
+from service.lab_tests.service import request_test, sample_tests
+from service.projects.models import Location, Project
+from service.projects.service import get_project
+from service.samples.models import Sample
+from service.samples.service import get_sample
+from service.web.htmx import render
+from service.web.pages import layout_context
+from service.web.reception import field_errors, pydantic_problems, simple_name
+
+router = APIRouter(prefix="/samples", include_in_schema=False)
+
+MAX_LABELS = 200
+TEST_LIMIT = 200
+# Who may request a test from the sample page.
+TEST_REQUESTERS = frozenset({Role.LAB_MANAGER, Role.REVIEWER})
+# Results a client sees: certified ones only (as in the exports).
+CLIENT_RESULT_STATES = frozenset({TestState.ISSUED.value, TestState.SUPERSEDED.value})
+CUSTODY_KINDS = tuple(
+    (kind.value, kind.value.replace("_", " ").capitalize())
+    for kind in CustodyKind
+    if kind != CustodyKind.RECEIVED
+)
+CUSTODY_FIELDS = ("kind", "from_holder", "to_holder", "place", "condition", "note")
+METHODS = (
+    ("falling_head", "Falling head, constant tailwater"),
+    ("falling_head_rising_tail", "Falling headwater, rising tailwater"),
+    ("constant_head", "Constant head"),
+    ("constant_rate", "Constant rate of flow"),
+)
+STANDARDS = (
+    ("", "None"),
+    ("ASTM D5084", "ASTM D5084"),
+    ("ASTM D5856", "ASTM D5856"),
+    ("ASTM D2434", "ASTM D2434"),
+    ("ISO 17892-11", "ISO 17892-11"),
+)
+TEST_FIELDS = ("method", "standard", "reference_temperature_c")
+
+
+# --- labels ----------------------------------------------------------------------------------
+
+
+def qr_svg(text: str) -> Markup:
+    """A QR code of `text` as inline SVG markup (scales with its box; no JavaScript)."""
+    # The 4-module quiet zone is what ISO/IEC 18004 asks for; scanners need it on a busy label.
+    code = segno.make(text, error="m", micro=False)
+    svg = code.svg_inline(scale=1, border=4, omitsize=True, svgclass="qr", lineclass="qr__line")
+    return Markup(svg)  # segno's own markup; `text` is only encoded into the path
+
+
+def parse_ids(text: str) -> list[int]:
+    """'1,2, 3' -> [1, 2, 3]; anything else a 422 naming the field, the value and the rule."""
+    parts = [part.strip() for part in text.split(",") if part.strip()]
+    accepted = f"sample numbers separated by commas, e.g. 12,13,14 (at most {MAX_LABELS})"
+    bad = [part for part in parts if not part.isdigit()]
+    if not parts or bad or len(parts) > MAX_LABELS:
+        shown = bad[0] if bad else text[:40]
+        msg = f"ids: '{shown}' is not a list of sample numbers; accepted: {accepted}"
+        raise InvalidInput(msg, detail=[{"loc": ["query", "ids"], "msg": msg, "type": "ids"}])
+    return list(dict.fromkeys(int(part) for part in parts))
+
+
+def depth_text(sample: Sample) -> str:
+    """The depths as typed: '1.50 m – 2.00 m', one of them, or ''."""
+    top, bottom = sample.depth_top_text, sample.depth_bottom_text
+    if top and bottom:
+        return f"{top} – {bottom}"
+    return top or bottom
+
+
+@router.get("/labels")
+def labels_page(
+    request: Request,
+    user: LabStaff,
+    session: SessionDep,
+    ids: Annotated[str, Query(max_length=4000)] = "",
+) -> Response:
+    """A sheet of labels: lab ID, project, client's ID, depth and a QR code of the lab ID."""
+    labels = []
+    projects: dict[int, Project] = {}
+    for sample_id in parse_ids(ids):
+        sample = get_sample(session, sample_id, user=user)
+        if sample.project_id not in projects:
+            projects[sample.project_id] = get_project(session, sample.project_id, user=user)
+        labels.append(
+            {
+                "sample": sample,
+                "project": projects[sample.project_id],
+                "depth": depth_text(sample),
+                "qr": qr_svg(sample.lab_id),
+            }
+        )
+    return render(
+        request,
+        "samples/labels.html",
+        layout_context(request, user, labels=labels),
+        fragment="samples/_labels.html",
+    )
+
+
+# --- the sample page -------------------------------------------------------------------------
+
+
+def _people(session: Session, ids: Iterable[int | None]) -> dict[int, str]:
+    names = {}
+    for user_id in {i for i in ids if i is not None}:
+        person = session.get(User, user_id)
+        names[user_id] = person.full_name if person else f"user {user_id}"
+    return names
+
+
+def _custody_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
+    form = dict.fromkeys(CUSTODY_FIELDS, "")
+    form["kind"] = CustodyKind.MOVED.value
+    form.update({k: v for k, v in (values or {}).items() if k in CUSTODY_FIELDS})
+    return form
+
+
+def _test_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
+    form = {"method": "falling_head", "standard": "", "reference_temperature_c": "20"}
+    form.update({k: v for k, v in (values or {}).items() if k in TEST_FIELDS})
+    return form
+
+
+def sample_context(
+    request: Request,
+    session: Session,
+    user: User,
+    sample_id: int,
+    *,
+    custody_form: Mapping[str, str] | None = None,
+    custody_errors: Mapping[str, Any] | None = None,
+    custody_general: list[str] | None = None,
+    test_form: Mapping[str, str] | None = None,
+    test_errors: Mapping[str, Any] | None = None,
+    test_general: list[str] | None = None,
+    saved: str = "",
+) -> dict[str, Any]:
+    """Everything the sample page shows; a client never gets the audit trail."""
+    sample = get_sample(session, sample_id, user=user)
+    assert sample.id is not None
+    project = get_project(session, sample.project_id, user=user)
+    location = session.get(Location, sample.location_id) if sample.location_id else None
+    tests, _total = sample_tests(session, sample.id, actor=user, limit=TEST_LIMIT)
+    events = list(custody_timeline(session, sample.id))
+    client = is_client(user)
+    audit = [] if client else history(session, "sample", sample.id)
+    people = _people(
+        session,
+        [sample.received_by_id]
+        + [t.technician_id for t in tests]
+        + [e.recorded_by_id for e in events]
+        + [a.actor_id for a in audit],
+    )
+    return layout_context(
+        request,
+        user,
+        sample=sample,
+        project=project,
+        location=location,
+        depth=depth_text(sample),
+        tests=tests,
+        events=events,
+        audit=audit,
+        people=people,
+        client_view=client,
+        client_result_states=CLIENT_RESULT_STATES,
+        can_record_custody=not client and sample.disposed_at is None,
+        can_request_test=user.role in TEST_REQUESTERS and sample.disposed_at is None,
+        custody_kinds=CUSTODY_KINDS,
+        custody_form=_custody_form(custody_form),
+        custody_errors=custody_errors or {},
+        custody_general=custody_general or [],
+        methods=METHODS,
+        method_names=dict(METHODS),
+        standards=STANDARDS,
+        reference_temperatures=[(f"{t:g}", f"{t:g} °C") for t in REFERENCE_TEMPERATURES_C],
+        test_form=_test_form(test_form),
+        test_errors=test_errors or {},
+        test_general=test_general or [],
+        saved=saved,
+    )
+
+
+@router.get("/{sample_id}")
+def sample_page(
+    sample_id: int, request: Request, user: CurrentUser, session: SessionDep
+) -> Response:
+    """A sample: details, tests, custody timeline and (lab staff) its audit history."""
+    context = sample_context(request, session, user, sample_id)
+    return render(request, "samples/sample.html", context, fragment="samples/_sample.html")
+
+
+def _posted(form: Mapping[str, Any], names: Iterable[str]) -> dict[str, str]:
+    return {name: str(form.get(name, "")) for name in names}
+
+
+@router.post("/{sample_id}/custody")
+async def custody_submit(
+    sample_id: int, request: Request, user: LabStaff, session: SessionDep
+) -> Response:
+    """Record a custody event. htmx gets the custody section back; a refusal is 422 with the
+    message beside the field and everything typed kept."""
+    values = _posted(await request.form(), CUSTODY_FIELDS)
+    payload = {name: value.strip() for name, value in values.items()}
+    errors: dict[str, Any] = {}
+    general: list[str] = []
+    try:
+        data = CustodyEventIn.model_validate(payload)
+        add_custody_event(session, sample_id, data, actor=user)
+    except ValidationError as exc:
+        errors, general = field_errors(pydantic_problems(exc), simple_name(CUSTODY_FIELDS))
+    except InvalidInput as exc:
+        errors, general = field_errors(exc.detail or [], simple_name(CUSTODY_FIELDS))
+    refused = bool(errors or general)
+    context = sample_context(
+        request,
+        session,
+        user,
+        sample_id,
+        custody_form=values if refused else None,
+        custody_errors=errors,
+        custody_general=general,
+        saved="" if refused else "custody",
+    )
+    return render(
+        request,
+        "samples/sample.html",
+        context,
+        fragment="samples/_custody.html",
+        status_code=422 if refused else 200,
+    )
+
+
+@router.post("/{sample_id}/tests")
+async def test_request_submit(
+    sample_id: int, request: Request, user: CurrentUser, session: SessionDep
+) -> Response:
+    """Request a permeability test (lab managers and reviewers); the project's specification
+    limit applies. htmx gets the tests section back; a refusal keeps what was chosen."""
+    if user.role not in TEST_REQUESTERS:
+        raise PermissionDenied("requesting a test needs a lab manager or a reviewer")
+    values = _posted(await request.form(), TEST_FIELDS)
+    payload: dict[str, Any] = {"method": values["method"].strip()}
+    if values["standard"].strip():
+        payload["standard"] = values["standard"].strip()
+    if values["reference_temperature_c"].strip():
+        payload["reference_temperature_c"] = values["reference_temperature_c"].strip()
+    errors: dict[str, Any] = {}
+    general: list[str] = []
+    try:
+        data = TestCreate.model_validate(payload)
+        request_test(session, sample_id, data, actor=user)
+    except ValidationError as exc:
+        errors, general = field_errors(pydantic_problems(exc), simple_name(TEST_FIELDS))
+    except InvalidInput as exc:
+        errors, general = field_errors(exc.detail or [], simple_name(TEST_FIELDS))
+    except ServiceError as exc:
+        if exc.status_code == 404:
+            raise
+        general = [exc.message]
+    refused = bool(errors or general)
+    context = sample_context(
+        request,
+        session,
+        user,
+        sample_id,
+        test_form=values if refused else None,
+        test_errors=errors,
+        test_general=general,
+        saved="" if refused else "test",
+    )
+    return render(
+        request,
+        "samples/sample.html",
+        context,
+        fragment="samples/_tests.html",
+        status_code=422 if refused else 200,
+    )
