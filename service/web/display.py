@@ -42,9 +42,12 @@ def sci(value: float | None, digits: int = 3) -> Markup | str:
 
 
 def number(value: float | None, digits: int = 3) -> str:
-    """A plain figure to `digits` significant digits, or a dash when there is none."""
+    """A plain figure to `digits` significant digits (whole numbers below a million are
+    written out, never as 1.99e+03), or a dash when there is none."""
     if value is None or not math.isfinite(value):
         return "—"
+    if 10**digits <= abs(value) < 1e6:
+        return f"{value:.0f}"
     return f"{value:.{digits}g}"
 
 
