@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 import random
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from sqlmodel import Session, select
@@ -31,6 +31,7 @@ from service.common import (
     TestState,
 )
 from service.custody.service import record_custody
+from service.db import utcnow
 from service.lab_tests import service as lifecycle
 from service.lab_tests.models import Specimen
 from service.lab_tests.schemas import (
@@ -150,7 +151,9 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
     """Load the demo scenario; returns False (and changes nothing) if it is already there."""
     if session.exec(select(Organisation).where(Organisation.name == LAB_NAME)).first():
         return False
-    now = now or datetime(2026, 11, 16, 8, 30, tzinfo=UTC)
+    # Dates are set relative to the day of loading, so the queue shows a realistic mix of
+    # tests due soon and overdue whenever the demo is tried.
+    now = now or utcnow().replace(hour=8, minute=30, second=0, microsecond=0)
     rng = random.Random(20261116)
     lab = get_or_create_organisation(session, LAB_NAME, OrganisationKind.LAB)
     users: dict[str, User] = {}

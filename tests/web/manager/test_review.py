@@ -1,0 +1,311 @@
+"""The review page (/tests/{test_id}/review) and its actions: approve, send back, issue the
+certificate, request a correction."""
+
+from __future__ import annotations
+
+import re
+
+from fastapi.testclient import TestClient
+from sqlmodel import Session
+
+from service.common import TestState
+from service.lab_tests import service as lifecycle
+from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.schemas import SendBackRequest, SignOffRequest
+from service.signoffs.service import sign_offs_of
+from tests.web.manager.conftest import HTMX, PASSWORD, Lab, new_test, signed_in, submitted_test
+
+
+def _state(session: Session, test_id: int | None) -> str:
+    session.expire_all()
+    test = session.get(PermeabilityTest, test_id)
+    assert test is not None
+    return test.state
+
+
+def _approve(session: Session, lab: Lab, test: PermeabilityTest) -> None:
+    assert test.id is not None
+    lifecycle.approve_test(session, test.id, SignOffRequest(password=PASSWORD), actor=lab.reviewer)
+    session.commit()
+
+
+def test_review_page_shows_what_a_reviewer_needs(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = submitted_test(session, lab, with_readings=True)
+    signed_in(session, web_client, lab.reviewer)
+    page = web_client.get(f"/tests/{test.id}/review")
+    assert page.status_code == 200
+    assert "<!doctype html>" in page.text
+    assert "HX-Request" in page.headers["vary"]
+    text = page.text
+    for testid in (
+        "review-k",
+        "uncertainty",
+        "compliance",
+        "plot-k",
+        "plot-ln-head",
+        "review-trials",
+        "review-checks",
+        "specimen-state",
+        "conditions",
+        "sign-offs",
+        "audit",
+        "approve-form",
+        "send-back-form",
+    ):
+        assert f'data-testid="{testid}"' in text, testid
+    # Every check with its status word, shape (icon) and source.
+    checks = re.search(r'data-testid="review-checks".*?</table>', text, re.S)
+    assert checks is not None
+    assert checks.group(0).count("<tr data-check=") == len(test.result["checks"])  # type: ignore[index]
+    assert "Specification limit" in checks.group(0)
+    assert "common practice, no source" in checks.group(0)
+    # The plots are server-rendered SVG with labelled axes.
+    assert 'id="review-k-plot"' in text
+    assert "Trial 4: ln(head) against time" in text
+    assert "Performed and submitted" in text
+
+
+def test_expanded_uncertainty_is_twice_the_standard(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    # GUM (JCGM 100:2008) 6.2-6.3: U = k·u with coverage factor k = 2 for about 95 %.
+    test = submitted_test(session, lab)
+    assert test.result is not None
+    u_rel = test.result["result"]["u_rel"]
+    signed_in(session, web_client, lab.reviewer)
+    page = web_client.get(f"/tests/{test.id}/review").text
+    assert f"{u_rel * 100:.2f}&nbsp;%" in page
+    assert f"±{2 * u_rel * 100:.2f}&nbsp;%" in page
+
+
+def test_review_fragment(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    signed_in(session, web_client, lab.reviewer)
+    fragment = web_client.get(f"/tests/{test.id}/review", headers=HTMX)
+    assert fragment.status_code == 200
+    assert "<!doctype html>" not in fragment.text
+    assert fragment.text.lstrip().startswith('<div id="review-body"')
+    assert "HX-Request" in fragment.headers["vary"]
+
+
+def test_approve_with_password(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve",
+        data={"password": PASSWORD, "note": "Checked.", "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 200
+    assert answer.headers["hx-redirect"] == f"/tests/{test.id}/review?done=approved"
+    assert _state(session, test.id) == TestState.APPROVED
+    meanings = [s.meaning for s in sign_offs_of(session, test.id or 0)]
+    assert meanings == ["performed", "approved"]
+    page = web_client.get(answer.headers["hx-redirect"])
+    assert "Approved and signed" in page.text
+    assert 'data-testid="issue-form"' in page.text
+
+
+def test_wrong_password_is_refused_beside_the_field(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve",
+        data={"password": "not my password", "note": "Looks fine", "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 403
+    assert answer.text.lstrip().startswith('<section class="panel review-actions"')
+    assert re.search(r'id="err-approve-password"[^>]*>.*?password is not correct', answer.text)
+    assert ">Looks fine</textarea>" in answer.text  # the note is kept
+    assert "not my password" not in answer.text  # a password is never echoed
+    assert _state(session, test.id) == TestState.SUBMITTED
+
+
+def test_empty_password_is_refused(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve", data={"password": ""}, headers=csrf
+    )
+    assert answer.status_code == 422
+    assert "<!doctype html>" in answer.text  # without htmx: the whole page again
+    assert "re-enter your password to sign" in answer.text
+
+
+def test_nobody_approves_their_own_test(session: Session, lab: Lab, web_client: TestClient) -> None:
+    # The lab manager prepared and submitted this one (performed sign-off).
+    test = submitted_test(session, lab, performer=lab.manager)
+    csrf = signed_in(session, web_client, lab.manager)
+    page = web_client.get(f"/tests/{test.id}/review").text
+    assert 'data-testid="approve-form"' not in page
+    assert "Nobody approves their own test" in page
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve",
+        data={"password": PASSWORD, "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 403
+    assert "you performed test" in answer.text
+    assert _state(session, test.id) == TestState.SUBMITTED
+
+
+def test_technician_cannot_approve(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab, technician=lab.technician_2)
+    csrf = signed_in(session, web_client, lab.technician)
+    page = web_client.get(f"/tests/{test.id}/review")
+    assert page.status_code == 200  # other lab staff read the review
+    assert 'data-testid="approve-form"' not in page.text
+    assert 'data-testid="send-back-form"' not in page.text
+    assert "Approving is for reviewers and lab managers" in page.text
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve",
+        data={"password": PASSWORD, "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 403
+    assert _state(session, test.id) == TestState.SUBMITTED
+
+
+def test_client_gets_404(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.client)
+    assert web_client.get(f"/tests/{test.id}/review").status_code == 404
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve", data={"password": PASSWORD}, headers=csrf
+    )
+    assert answer.status_code == 404
+
+
+def test_approve_without_csrf_is_refused(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = submitted_test(session, lab)
+    signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve", data={"password": PASSWORD, "csrf_token": "forged"}
+    )
+    assert answer.status_code == 403
+    assert "CSRF" in answer.text
+    assert _state(session, test.id) == TestState.SUBMITTED
+
+
+def test_stale_version_answers_409_with_both(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = submitted_test(session, lab)
+    read_version = test.version
+    assert test.id is not None
+    # While the reviewer reads, a lab manager approves... no: sends it back, and the
+    # technician submits again, so the version moves on.
+    lifecycle.send_back(
+        session, test.id, SendBackRequest(reason="Recheck trial 2."), actor=lab.manager
+    )
+    lifecycle.submit_test(session, test.id, SignOffRequest(password=PASSWORD), actor=lab.technician)
+    session.commit()
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/approve",
+        data={"password": PASSWORD, "version": str(read_version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 409
+    compare = re.search(r'data-testid="stale-versions".*?</table>', answer.text, re.S)
+    assert compare is not None
+    session.expire_all()
+    current = session.get(PermeabilityTest, test.id)
+    assert current is not None
+    assert f"<td>{read_version}</td><td>{current.version}</td>" in compare.group(0)
+    assert current.state == TestState.SUBMITTED
+
+
+def test_send_back_needs_a_reason(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/send-back",
+        data={"reason": "   ", "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 422
+    assert 'data-testid="send-back-form"' in answer.text  # the form comes back in place
+    assert re.search(r'id="err-send_back-reason"[^>]*>.*?reason: say what must change', answer.text)
+    assert 'aria-invalid="true"' in answer.text
+    assert _state(session, test.id) == TestState.SUBMITTED
+
+
+def test_send_back_with_reason(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(
+        f"/tests/{test.id}/review/send-back",
+        data={"reason": "Trial 3 temperature looks wrong.", "version": str(test.version)},
+        headers=csrf,
+    )
+    assert answer.status_code == 303
+    assert _state(session, test.id) == TestState.RUNNING
+    page = web_client.get(answer.headers["location"]).text
+    assert "Trial 3 temperature looks wrong." in page
+
+
+def test_issue_certificate_and_download(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    _approve(session, lab, test)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(f"/tests/{test.id}/review/issue", headers={**csrf, **HTMX})
+    assert answer.status_code == 200
+    target = answer.headers["hx-redirect"]
+    assert re.fullmatch(rf"/tests/{test.id}/review\?issued=\d+", target)
+    assert _state(session, test.id) == TestState.ISSUED
+    page = web_client.get(target).text
+    link = re.search(r'href="(/api/v1/certificates/\d+/pdf)" data-testid="issued-pdf"', page)
+    assert link is not None
+    pdf = web_client.get(link.group(1))
+    assert pdf.status_code == 200
+    assert pdf.content.startswith(b"%PDF")
+
+
+def test_issue_refused_before_approval(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    csrf = signed_in(session, web_client, lab.reviewer)
+    answer = web_client.post(f"/tests/{test.id}/review/issue", headers={**csrf, **HTMX})
+    assert answer.status_code == 409
+    assert "only approved tests reach a certificate" in answer.text
+
+
+def test_request_correction(session: Session, lab: Lab, web_client: TestClient) -> None:
+    test = submitted_test(session, lab)
+    _approve(session, lab, test)
+    csrf = signed_in(session, web_client, lab.manager)
+    refused = web_client.post(
+        f"/tests/{test.id}/review/correction", data={"reason": ""}, headers={**csrf, **HTMX}
+    )
+    assert refused.status_code == 422
+    assert 'data-testid="correction-form"' in refused.text
+    assert "reason: say what the correction is for" in refused.text
+    answer = web_client.post(
+        f"/tests/{test.id}/review/correction",
+        data={"reason": "Length read from the wrong line."},
+        headers=csrf,
+    )
+    assert answer.status_code == 303
+    new_id = int(re.findall(r"/tests/(\d+)/review", answer.headers["location"])[0])
+    assert new_id != test.id
+    assert _state(session, new_id) == TestState.RUNNING
+    assert _state(session, test.id) == TestState.APPROVED  # readable until the new one is
+    page = web_client.get(answer.headers["location"]).text
+    assert "Length read from the wrong line." in page
+
+
+def test_planned_test_has_nothing_to_decide(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = new_test(session, lab)
+    signed_in(session, web_client, lab.reviewer)
+    page = web_client.get(f"/tests/{test.id}/review").text
+    assert 'data-testid="not-submitted"' in page
+    assert 'data-testid="no-result"' in page
