@@ -18,8 +18,8 @@ import service.web
 from service import __version__
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.errors import ServiceError
-from service.web.errors import install_web_error_handling
 from service.security import install_security
+from service.web.errors import install_web_error_handling
 
 
 @asynccontextmanager
@@ -38,7 +38,8 @@ def create_app() -> FastAPI:
     app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
     _add_routes(app)
     app.add_exception_handler(ServiceError, _service_error)
-    install_security(app)
+    install_web_error_handling(app)  # pages get HTML errors; /api/ keeps the JSON above
+    install_security(app)  # after: its validation handler wraps the one installed before
     return app
 
 

@@ -43,7 +43,9 @@ def _lock_head(session: Session, chain: ChainName) -> ChainHead:
     """The chain's head row, locked for the rest of this transaction (read once per transaction)."""
     transaction = session.get_transaction()
     cached = session.info.get(("chain_head", chain))
-    if cached is not None and cached[0] is transaction:
+    # The cached head is trusted only in the same transaction and while still in the session
+    # (a rolled-back savepoint expunges a head it created).
+    if cached is not None and cached[0] is transaction and cached[1] in session:
         return cast(ChainHead, cached[1])
     head = session.exec(
         select(ChainHead).where(ChainHead.name == chain).with_for_update()

@@ -35,7 +35,7 @@ router = APIRouter(prefix="/samples", include_in_schema=False)
 MAX_LABELS = 200
 TEST_LIMIT = 200
 # Who may request a test from the sample page.
-TEST_REQUESTERS = frozenset({Role.LAB_MANAGER, Role.REVIEWER})
+TEST_REQUESTERS = frozenset({Role.LAB_MANAGER, Role.REVIEWER, Role.ADMIN})
 # Results a client sees: certified ones only (as in the exports).
 CLIENT_RESULT_STATES = frozenset({TestState.ISSUED.value, TestState.SUPERSEDED.value})
 CUSTODY_KINDS = tuple(
@@ -259,10 +259,10 @@ async def custody_submit(
 async def test_request_submit(
     sample_id: int, request: Request, user: CurrentUser, session: SessionDep
 ) -> Response:
-    """Request a permeability test (lab managers and reviewers); the project's specification
+    """Request a permeability test (lab managers, reviewers, admins); the project's specification
     limit applies. htmx gets the tests section back; a refusal keeps what was chosen."""
     if user.role not in TEST_REQUESTERS:
-        raise PermissionDenied("requesting a test needs a lab manager or a reviewer")
+        raise PermissionDenied("requesting a test needs a lab manager, a reviewer or an admin")
     values = _posted(await request.form(), TEST_FIELDS)
     payload: dict[str, Any] = {"method": values["method"].strip()}
     if values["standard"].strip():
