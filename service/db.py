@@ -83,11 +83,19 @@ def make_engine(url: str) -> Engine:
         path = url.split("///", 1)[-1]
         if path and path != ":memory:":
             Path(path).parent.mkdir(parents=True, exist_ok=True)
-        engine = sa.create_engine(url, connect_args={"check_same_thread": False, "timeout": 10})
+        # No pool: a SQLite connection costs microseconds to open, and a pool that runs dry
+        # can stall a request that waits for a connection on the event loop.
+        engine = sa.create_engine(
+            url,
+            connect_args={"check_same_thread": False, "timeout": 10},
+            poolclass=sa.pool.NullPool,
+        )
         sa.event.listen(engine, "connect", _sqlite_pragmas)
         sa.event.listen(engine, "begin", _sqlite_begin)
         return engine
-    return sa.create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=20)
+    # Per worker: 20 kept open, 30 more at peaks (PostgreSQL allows 100 by default; size
+    # max_connections to workers x 50 for a busy lab).
+    return sa.create_engine(url, pool_pre_ping=True, pool_size=20, max_overflow=30, pool_timeout=10)
 
 
 @lru_cache

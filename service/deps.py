@@ -6,11 +6,14 @@ carry the session's CSRF token (header `X-CSRF-Token`, or form field `csrf_token
 
 from __future__ import annotations
 
+import asyncio
 import hmac
-from collections.abc import Callable, Iterator
+import weakref
+from collections.abc import AsyncIterator, Callable, Iterator
 from typing import Annotated, Any
 
 from fastapi import Depends, Request
+from fastapi.concurrency import run_in_threadpool
 from itsdangerous import BadSignature, URLSafeSerializer
 from sqlmodel import Session
 
@@ -27,7 +30,32 @@ SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
 LAB_STAFF = (Role.TECHNICIAN, Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN)
 
 
-def request_session(request: Request) -> Iterator[Session]:
+_write_gates: weakref.WeakKeyDictionary[asyncio.AbstractEventLoop, asyncio.Lock] = (
+    weakref.WeakKeyDictionary()
+)
+
+
+async def write_gate(request: Request) -> AsyncIterator[None]:
+    """On SQLite, let one writing request per process at a time reach the database.
+
+    SQLite has one writer. Without this gate every writing request takes a worker thread and
+    waits there for the write lock (BEGIN IMMEDIATE); past the thread pool's size the lock
+    holder cannot get a thread to finish, and everything stalls until the busy timeout. Here
+    writers queue on the event loop instead, holding no thread and no connection."""
+    if request.method in SAFE_METHODS or not get_settings().is_sqlite:
+        yield
+        return
+    loop = asyncio.get_running_loop()
+    gate = _write_gates.get(loop)
+    if gate is None:
+        gate = _write_gates[loop] = asyncio.Lock()
+    async with gate:
+        yield
+
+
+def request_session(
+    request: Request, _gate: Annotated[None, Depends(write_gate, scope="function")]
+) -> Iterator[Session]:
     """The request owns the transaction; writes take SQLite's write lock up front."""
     with session_scope(write=request.method not in SAFE_METHODS) as session:
         yield session
@@ -72,7 +100,9 @@ async def authenticate(request: Request, session: SessionDep) -> tuple[User, Acc
     """The user behind this request and the token that proved it, or None if anonymous."""
     header = request.headers.get("authorization", "")
     if header.lower().startswith("bearer "):
-        found = find_live_token(session, header[7:].strip(), kind=TokenKind.API)
+        found = await run_in_threadpool(
+            find_live_token, session, header[7:].strip(), kind=TokenKind.API
+        )
         if found is None:
             raise NotAuthenticated("the bearer token is unknown, expired or revoked")
         token, user = found
@@ -80,7 +110,8 @@ async def authenticate(request: Request, session: SessionDep) -> tuple[User, Acc
     raw = _cookie_token(request)
     if raw is None:
         return None
-    found = find_live_token(session, raw, kind=TokenKind.SESSION)
+    # Database work stays off the event loop (a blocked loop stalls every request).
+    found = await run_in_threadpool(find_live_token, session, raw, kind=TokenKind.SESSION)
     if found is None:
         return None
     token, user = found
