@@ -1,4 +1,5 @@
-"""The `seepline` command: serve, migrate, load demo data, manage users, verify logs."""
+"""The `seepline` command: serve, migrate, load demo data, manage users, verify logs, back up
+and restore."""
 
 from __future__ import annotations
 
@@ -6,8 +7,13 @@ import argparse
 import getpass
 import sys
 from collections.abc import Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
 
 from service.common import Role
+
+if TYPE_CHECKING:
+    from service.backup import DatabaseFacts
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -33,6 +39,26 @@ def main(argv: Sequence[str] | None = None) -> int:
 
     commands.add_parser("verify-logs", help="verify the custody and audit hash chains")
 
+    backup = commands.add_parser(
+        "backup",
+        help="copy the database to a file (SQLite, safe while serving; PostgreSQL: prints the "
+        "pg_dump command)",
+    )
+    backup.add_argument("path", type=Path, help="the backup file to write")
+    backup.add_argument("--force", action="store_true", help="replace an existing file")
+    backup.add_argument("--database-url", help="default: DATABASE_URL")
+
+    restore = commands.add_parser(
+        "restore",
+        help="restore a backup file into the database (SQLite; PostgreSQL: prints the "
+        "pg_restore commands); stop the service first",
+    )
+    restore.add_argument("path", type=Path, help="the backup file to read")
+    restore.add_argument(
+        "--force", action="store_true", help="replace a database that already holds data"
+    )
+    restore.add_argument("--database-url", help="default: DATABASE_URL")
+
     args = parser.parse_args(argv)
     handler = {
         "serve": _serve,
@@ -40,6 +66,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         "load-demo": _load_demo,
         "create-user": _create_user,
         "verify-logs": _verify_logs,
+        "backup": _backup,
+        "restore": _restore,
     }[args.command]
     return handler(args)
 
@@ -128,6 +156,105 @@ def _verify_logs(_args: argparse.Namespace) -> int:
                 failures += 1
                 print(f"{chain}: BROKEN at row {report.first_broken_seq}: {report.problem}")
     return 1 if failures else 0
+
+
+def _database_url(args: argparse.Namespace) -> str:
+    from service.config import get_settings
+
+    return str(args.database_url or get_settings().database_url)
+
+
+def _describe(facts: DatabaseFacts) -> str:
+    return (
+        f"{facts.rows} rows in {facts.tables} tables, migration {facts.revision}, "
+        f"{facts.size_bytes / 1e6:.1f} MB, integrity {facts.integrity}"
+    )
+
+
+def _backup(args: argparse.Namespace) -> int:
+    from service import backup as backups
+
+    url = _database_url(args)
+    if url.startswith("postgresql"):
+        print(backups.postgres_backup_script(url, args.path))
+        return 3
+    try:
+        report = backups.backup_sqlite(url, args.path, force=args.force)
+    except backups.BackupRefused as exc:
+        print(f"refused: {exc.message}", file=sys.stderr)
+        return 2
+    print(f"backed up {report.source} to {report.target} in {report.seconds:.2f} s")
+    print(f"  the copy: {_describe(report.facts)}")
+    print(f"  keep the certificate signing key too (not in the database): {_signing_key_path()}")
+    return 0
+
+
+def _restore(args: argparse.Namespace) -> int:
+    from service import backup as backups
+    from service.db import head_revision
+
+    url = _database_url(args)
+    if url.startswith("postgresql"):
+        print(backups.postgres_restore_script(url, args.path))
+        return 3
+    try:
+        replaced = _rows_in(url)
+        report = backups.restore_sqlite(args.path, url, force=args.force)
+    except backups.BackupRefused as exc:
+        print(f"refused: {exc.message}", file=sys.stderr)
+        return 2
+    print(f"restored {report.source} into {report.target} in {report.seconds:.2f} s")
+    if replaced:
+        print(f"  replaced what was there (--force): {replaced} rows")
+    print(f"  the database now: {_describe(report.facts)}")
+    if report.facts.revision != head_revision():
+        print(
+            f"  this version of Seepline needs migration {head_revision()}: "
+            "run `seepline migrate` before serving"
+        )
+        return 0
+    return _verify_chains(url)
+
+
+def _rows_in(url: str) -> int:
+    """Rows in the SQLite database about to be replaced (0 if none or no file)."""
+    from service.backup import inspect_sqlite, sqlite_path
+
+    path = sqlite_path(url)
+    if not path.is_file() or not path.stat().st_size:
+        return 0
+    return inspect_sqlite(path).rows
+
+
+def _verify_chains(url: str) -> int:
+    from sqlmodel import Session
+
+    from service.audit.chain import verify
+    from service.db import make_engine
+
+    engine = make_engine(url)
+    failures = 0
+    try:
+        with Session(engine) as session:
+            for chain in ("custody", "audit"):
+                report = verify(session, chain)
+                if report.ok:
+                    print(f"  {chain} log: {report.rows} rows, every link holds")
+                else:
+                    failures += 1
+                    print(
+                        f"  {chain} log: BROKEN at row {report.first_broken_seq}: {report.problem}"
+                    )
+    finally:
+        engine.dispose()
+    return 1 if failures else 0
+
+
+def _signing_key_path() -> str:
+    from service.certificates.signing import DEFAULT_KEY_FILE
+    from service.config import VAR_DIR, get_settings
+
+    return get_settings().signing_key_path.strip() or str(VAR_DIR / DEFAULT_KEY_FILE)
 
 
 if __name__ == "__main__":
