@@ -36,8 +36,8 @@ class Settings(BaseSettings):
     signing_key_path: str = ""
     # Largest PDF accepted by the public verification upload.
     verify_upload_max_bytes: int = Field(default=10 * 1024 * 1024, ge=1024)
-    # BENCH_ANCHORS=1 serves the bare speed anchors of scripts/bench_load.py (service/api/bench_anchors.py)
-    # outside production; off by default, and never served in production.
+    # BENCH_ANCHORS=1 serves the bare speed anchors of scripts/bench_load.py
+    # (service/api/bench_anchors.py); off by default, and never served in production.
     bench_anchors: bool = False
 
     @model_validator(mode="after")
