@@ -284,7 +284,7 @@ async def create(request: Request, session: SessionDep, user: StaffUser) -> Resp
     try:
         data = ApparatusCreate(
             identifier=form.value("identifier"),
-            kind=form.value("kind"),  # type: ignore[arg-type]
+            kind=form.value("kind"),
             description=form.value("description"),
             **{name: form.value(name) or None for name in TEXT_FIELDS[2:]},
             **dates,

@@ -106,7 +106,9 @@ def with_unit(typed: str, unit: str) -> str | None:
     return f"{text} {unit}"
 
 
-def pydantic_problems(exc: ValidationError, prefix: tuple[str | int, ...] = ()) -> list[dict]:
+def pydantic_problems(
+    exc: ValidationError, prefix: tuple[str | int, ...] = ()
+) -> list[dict[str, Any]]:
     """A schema's refusals in the services' shape: loc, msg (value and what is accepted)."""
     out = []
     for error in exc.errors():

@@ -191,7 +191,8 @@ def _names(session: Session, ids: set[int]) -> dict[int, str]:
     ids = {i for i in ids if i}
     if not ids:
         return {}
-    return dict(session.exec(select(User.id, User.full_name).where(col(User.id).in_(ids))).all())
+    rows = session.exec(select(User.id, User.full_name).where(col(User.id).in_(ids))).all()
+    return {user_id: name for user_id, name in rows if user_id is not None}
 
 
 def _short(value: str | None) -> str:
@@ -337,9 +338,9 @@ def _refused(
                 name = loc[0] if loc else "form"
                 forms.errors.setdefault(name, {"msg": problem.get("msg", ""), "kind": "invalid"})
         if isinstance(exc, PermissionDenied) and isinstance(exc.detail, dict):
-            name = exc.detail.get("field")
-            if name:
-                forms.errors[name] = {"msg": exc.message, "kind": "invalid"}
+            field = exc.detail.get("field")
+            if isinstance(field, str) and field:
+                forms.errors[field] = {"msg": exc.message, "kind": "invalid"}
         if isinstance(exc, StaleVersion) and isinstance(exc.detail, dict):
             forms.stale = {
                 "yours": exc.detail.get("yours", {}),

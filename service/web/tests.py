@@ -240,12 +240,14 @@ def reduce_test(
                 )
         return outcome
     outcome.result = result
-    outcome.notes = trial_notes(result, outcome.rows)
+    # Keys are trial ids, or "new" for the trial being typed.
+    notes: dict[Any, list[dict[str, str]]] = dict(trial_notes(result, outcome.rows))
+    outcome.notes = notes
     reference = f"{result['reference_temperature_c']:g} °C"
     for trial in included:
         if "temperature" not in trial.entries:
             key = trial.id if trial.id is not None else "new"
-            outcome.notes.setdefault(key, []).append(
+            notes.setdefault(key, []).append(
                 {"status": "warn", "text": f"No temperature: k is not corrected to {reference}."}
             )
     return outcome
