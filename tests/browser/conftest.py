@@ -31,6 +31,13 @@ PHONE = {"width": 390, "height": 844}
 
 
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    # A browser step that never answers (seen once in about twenty runs, inside Chromium)
+    # fails after 180 s instead of hanging the run, and a failed browser test is tried twice
+    # more: a real fault fails all three tries, a stalled browser does not sink CI.
+    for item in items:
+        if "browser" in item.keywords:
+            item.add_marker(pytest.mark.timeout(180, method="signal"))
+            item.add_marker(pytest.mark.flaky(reruns=2))
     if CHROMIUM.exists():
         return
     skip = pytest.mark.skip(
