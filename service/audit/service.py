@@ -191,7 +191,8 @@ def _text(value: Any) -> str | None:
 
 @dataclass(frozen=True)
 class FieldChange:
-    """One field of one audit row, with the values as text (what pages and tests read)."""
+    """One changed field, with the values as text (what pages, the API and tests read);
+    fields changed together share `seq` and `row_hash` (one audit row of chain `chain`)."""
 
     seq: int
     chain: str

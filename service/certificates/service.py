@@ -427,6 +427,8 @@ def withdraw_certificate(
             detail={"state": certificate.state},
         )
     now = now or utcnow()
+    # The checkpoint lock before the certificate's head, in the order issuing takes them.
+    checkpoints.reserve(session)
     successor = (
         session.get(Certificate, certificate.superseded_by_id)
         if certificate.superseded_by_id
