@@ -120,7 +120,7 @@ def signing_keys(session: SessionDep) -> dict[str, Any]:
 def checkpoint_list(
     request: Request,
     session: SessionDep,
-    after: Annotated[int, Query(ge=0, description="sequence to start after")] = 0,
+    after: Annotated[int, Query(ge=0, le=2**31 - 1, description="sequence to start after")] = 0,
     limit: Annotated[int, Query(ge=1, le=CHECKPOINT_PAGE, description="page size")] = 100,
 ) -> dict[str, Any]:
     """The signed checkpoints of the custody and audit logs, oldest first; keep a copy:
