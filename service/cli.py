@@ -1,5 +1,5 @@
-"""The `seepline` command: serve, migrate, load demo data, manage users, verify logs, back up
-and restore."""
+"""The `seepline` command: serve, migrate, load demo data, manage users, verify logs, make and
+export signed checkpoints, replace the signing key, back up and restore."""
 
 from __future__ import annotations
 
@@ -13,6 +13,9 @@ from typing import TYPE_CHECKING
 from service.common import Role
 
 if TYPE_CHECKING:
+    from sqlmodel import Session
+
+    from service.audit.checkpoints import OutsideCheckpoint
     from service.backup import DatabaseFacts
 
 
@@ -37,7 +40,32 @@ def main(argv: Sequence[str] | None = None) -> int:
     user.add_argument("--client", action="store_true", help="the organisation is a client")
     user.add_argument("--password")
 
-    commands.add_parser("verify-logs", help="verify the custody and audit hash chains")
+    verify_logs = commands.add_parser(
+        "verify-logs",
+        help="verify the custody and audit hash chains against the signed checkpoints",
+    )
+    verify_logs.add_argument(
+        "--checkpoints",
+        type=Path,
+        help="an outside copy of the checkpoints (a file from export-checkpoints or a page of "
+        "/.well-known/seepline-checkpoints); default: the database's own",
+    )
+    commands.add_parser(
+        "checkpoint", help="sign a checkpoint of every chain head that moved since the last"
+    )
+    export = commands.add_parser(
+        "export-checkpoints",
+        help="write every signed checkpoint and the public keys to a JSON file to keep elsewhere",
+    )
+    export.add_argument("path", type=Path)
+    export.add_argument("--force", action="store_true", help="replace an existing file")
+    rotate = commands.add_parser(
+        "rotate-signing-key",
+        help="replace the signing key, keeping the old public key trusted for what it signed",
+    )
+    rotate.add_argument(
+        "--new-key", type=Path, help="an Ed25519 private key (PKCS#8 PEM); default: a new one"
+    )
 
     backup = commands.add_parser(
         "backup",
@@ -66,6 +94,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         "load-demo": _load_demo,
         "create-user": _create_user,
         "verify-logs": _verify_logs,
+        "checkpoint": _checkpoint,
+        "export-checkpoints": _export_checkpoints,
+        "rotate-signing-key": _rotate_signing_key,
         "backup": _backup,
         "restore": _restore,
     }[args.command]
@@ -98,10 +129,15 @@ def _serve(args: argparse.Namespace) -> int:
 
 
 def _migrate(_args: argparse.Namespace) -> int:
-    from service.db import migrate
+    from service.certificates.service import sign_missing_states
+    from service.db import migrate, session_scope
 
     migrate()
     print("database schema is up to date")
+    with session_scope(write=True) as session:
+        signed = sign_missing_states(session)
+    if signed:
+        print(f"signed the state record of {signed} certificate(s) issued before state signing")
     return 0
 
 
@@ -142,20 +178,130 @@ def _create_user(args: argparse.Namespace) -> int:
     return 0
 
 
-def _verify_logs(_args: argparse.Namespace) -> int:
-    from service.audit.chain import verify
+def _verify_logs(args: argparse.Namespace) -> int:
+    from service.audit.checkpoints import read_export
     from service.db import session_scope
 
-    failures = 0
+    outside = []
+    if args.checkpoints is not None:
+        try:
+            outside = read_export(args.checkpoints.read_text(encoding="utf-8"))
+        except (OSError, ValueError, KeyError, TypeError) as exc:
+            print(f"cannot read {args.checkpoints}: {exc}", file=sys.stderr)
+            return 2
     with session_scope() as session:
-        for chain in ("custody", "audit"):
-            report = verify(session, chain)
-            if report.ok:
-                print(f"{chain}: {report.rows} rows, every link holds")
-            else:
-                failures += 1
-                print(f"{chain}: BROKEN at row {report.first_broken_seq}: {report.problem}")
-    return 1 if failures else 0
+        return _report_logs(session, outside)
+
+
+def _report_logs(
+    session: Session, outside: Sequence[OutsideCheckpoint] = (), indent: str = ""
+) -> int:
+    """Print the verdict on the checkpoints and on each log; 1 if anything is broken."""
+    from service.audit.checkpoints import verify_logs
+
+    report = verify_logs(session, outside)
+    marks = report.checkpoints
+    source = f", {marks.outside} from the outside copy" if outside else ""
+    if marks.latest is None:
+        print(f"{indent}checkpoints: none yet: no row is anchored (run `seepline checkpoint`)")
+    else:
+        print(
+            f"{indent}checkpoints: {marks.checkpoints} in the database{source}; latest "
+            f"{marks.latest}, signed {marks.latest_made_at:%Y-%m-%d %H:%M:%S} UTC"
+        )
+    for problem in marks.problems:
+        print(f"{indent}checkpoints: BROKEN: {problem}")
+    for log in report.logs:
+        pending = f"; {log.unanchored_rows} not yet anchored" if log.unanchored_rows else ""
+        if log.ok:
+            print(
+                f"{indent}{log.chain} log: {log.rows} rows in {log.chains} chains, every link "
+                f"holds{pending}"
+            )
+        else:
+            others = len(log.broken_chains) - 1
+            more = f" (and {others} other chain{'s' if others != 1 else ''})" if others else ""
+            print(
+                f"{indent}{log.chain} log: BROKEN at {log.first_broken_chain} row "
+                f"{log.first_broken_seq}: {log.problem}{more}"
+            )
+    return 0 if report.ok else 1
+
+
+def _checkpoint(_args: argparse.Namespace) -> int:
+    from service.audit.checkpoints import make_checkpoint
+    from service.db import session_scope
+
+    with session_scope(write=True) as session:
+        made = make_checkpoint(session, reason="command")
+    print(
+        f"checkpoint {made.seq} signed at {made.made_at:%Y-%m-%d %H:%M:%S} UTC with key "
+        f"{made.key_id}: {made.heads} chain head(s) moved since the last"
+    )
+    return 0
+
+
+def _export_checkpoints(args: argparse.Namespace) -> int:
+    import json
+
+    from service.audit.checkpoints import export
+    from service.certificates.signing import published_keys
+    from service.config import get_settings
+    from service.db import session_scope
+
+    if args.path.exists() and not args.force:
+        print(f"refused: {args.path} exists (add --force to replace it)", file=sys.stderr)
+        return 2
+    with session_scope() as session:
+        document = export(session, lab_name=get_settings().lab_name, keys=published_keys(session))
+    args.path.write_text(json.dumps(document, indent=1) + "\n", encoding="utf-8")
+    print(f"wrote {len(document['checkpoints'])} checkpoint(s) to {args.path}")
+    return 0
+
+
+def _rotate_signing_key(args: argparse.Namespace) -> int:
+    import os
+
+    from cryptography.hazmat.primitives import serialization
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
+
+    from service.audit.checkpoints import make_checkpoint
+    from service.certificates.signing import (
+        load_signing_key,
+        private_pem,
+        rotate_signing_key,
+    )
+    from service.db import session_scope, utcnow
+
+    new_private = None
+    if args.new_key is not None:
+        loaded = serialization.load_pem_private_key(args.new_key.read_bytes(), password=None)
+        if not isinstance(loaded, Ed25519PrivateKey):
+            print("refused: the new key is not an Ed25519 private key", file=sys.stderr)
+            return 2
+        new_private = loaded
+    path = load_signing_key().path
+    try:
+        with session_scope(write=True) as session:
+            old, new = rotate_signing_key(session, now=utcnow(), new_private=new_private)
+            # Written beside the old key before commit; put in place only after it.
+            staged = path.with_name(f".{path.name}.new")
+            descriptor = os.open(staged, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+            with os.fdopen(descriptor, "wb") as handle:
+                handle.write(private_pem(new.private_key))
+    except ValueError as exc:
+        print(f"refused: {exc}", file=sys.stderr)
+        return 2
+    retired = path.with_name(f"{path.name}.retired-{old.key_id}")
+    os.replace(path, retired)
+    os.replace(staged, path)
+    load_signing_key.cache_clear()
+    with session_scope(write=True) as session:
+        made = make_checkpoint(session, reason="key change")
+    print(f"signing key replaced: {old.key_id} (retired) -> {new.key_id} (in use)")
+    print(f"  the old private key was moved to {retired}: archive it offline or destroy it")
+    print(f"  checkpoint {made.seq} is signed with the new key; restart the service now")
+    return 0
 
 
 def _database_url(args: argparse.Namespace) -> str:
@@ -229,25 +375,14 @@ def _rows_in(url: str) -> int:
 def _verify_chains(url: str) -> int:
     from sqlmodel import Session
 
-    from service.audit.chain import verify
     from service.db import make_engine
 
     engine = make_engine(url)
-    failures = 0
     try:
         with Session(engine) as session:
-            for chain in ("custody", "audit"):
-                report = verify(session, chain)
-                if report.ok:
-                    print(f"  {chain} log: {report.rows} rows, every link holds")
-                else:
-                    failures += 1
-                    print(
-                        f"  {chain} log: BROKEN at row {report.first_broken_seq}: {report.problem}"
-                    )
+            return _report_logs(session, indent="  ")
     finally:
         engine.dispose()
-    return 1 if failures else 0
 
 
 def _signing_key_path() -> str:

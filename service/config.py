@@ -34,6 +34,10 @@ class Settings(BaseSettings):
     # Ed25519 key (PKCS#8 PEM) that signs issued certificates. Empty: ./var/signing_key.pem,
     # generated once in development and test; production refuses to start without one.
     signing_key_path: str = ""
+    # A signed checkpoint of the custody and audit logs is made when the last one is older
+    # than this and some log moved since (also at every certificate issue and by
+    # `seepline checkpoint`); 0 leaves only those two.
+    checkpoint_interval_minutes: int = Field(default=60, ge=0)
     # Largest PDF accepted by the public verification upload.
     verify_upload_max_bytes: int = Field(default=10 * 1024 * 1024, ge=1024)
     # BENCH_ANCHORS=1 serves the bare speed anchors of scripts/bench_load.py

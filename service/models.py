@@ -2,8 +2,8 @@
 
 from service.accounts.models import AccessToken, Organisation, User
 from service.apparatus.models import Apparatus
-from service.audit.models import AuditEvent, ChainHead
-from service.certificates.models import Certificate, CertificateTest
+from service.audit.models import AuditEvent, ChainHead, Checkpoint
+from service.certificates.models import Certificate, CertificateTest, PublishedKey
 from service.custody.models import CustodyEvent
 from service.idempotency.models import IdempotencyRecord
 from service.lab_tests.models import (
@@ -25,12 +25,14 @@ __all__ = [
     "Certificate",
     "CertificateTest",
     "ChainHead",
+    "Checkpoint",
     "CustodyEvent",
     "IdempotencyRecord",
     "Location",
     "Organisation",
     "PermeabilityTest",
     "Project",
+    "PublishedKey",
     "Reading",
     "Sample",
     "SaturationStep",

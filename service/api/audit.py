@@ -2,17 +2,15 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Annotated
 
 from fastapi import APIRouter, Depends
-from pydantic import BaseModel, ConfigDict
 from sqlmodel import SQLModel
 
 from service.access import is_client
 from service.accounts.models import User
 from service.api.queue import Limit, Offset
-from service.audit.service import history
+from service.audit.service import FieldChange, history
 from service.custody.service import ChainReportRead, verify_chain
 from service.deps import CurrentUser, LabStaff, SessionDep
 from service.errors import InvalidInput, NotFound
@@ -21,21 +19,15 @@ from service.queue import DEFAULT_LIMIT, Page
 router = APIRouter(prefix="/api/v1/audit", tags=["audit"])
 
 # Tables whose rows are themselves log entries or secrets have no history of their own.
-_NOT_AUDITED = {"audit_event", "chain_head", "custody_event", "access_token", "idempotency_record"}
-
-
-class AuditEventRead(BaseModel):
-    model_config = ConfigDict(from_attributes=True)
-
-    seq: int
-    entity: str
-    entity_id: int
-    field: str
-    old_value: str | None
-    new_value: str | None
-    actor_id: int | None
-    occurred_at: datetime
-    row_hash: str
+_NOT_AUDITED = {
+    "audit_event",
+    "chain_head",
+    "custody_event",
+    "access_token",
+    "idempotency_record",
+    "log_checkpoint",
+    "signing_key",
+}
 
 
 def lab_staff_or_not_found(user: CurrentUser) -> User:
@@ -50,11 +42,12 @@ AuditReader = Annotated[User, Depends(lab_staff_or_not_found)]
 
 @router.get("/verify", response_model=ChainReportRead)
 def verify(session: SessionDep, _user: LabStaff) -> ChainReportRead:
-    """Recompute every link of the audit chain; names the first row edited or deleted."""
+    """Recompute every link of the audit chains against the signed checkpoints; names the
+    first row edited or deleted and its chain."""
     return verify_chain(session, "audit")
 
 
-@router.get("/{entity}/{entity_id}", response_model=Page[AuditEventRead])
+@router.get("/{entity}/{entity_id}", response_model=Page[FieldChange])
 def record_history(
     entity: str,
     entity_id: int,
@@ -62,9 +55,9 @@ def record_history(
     _user: AuditReader,
     limit: Limit = DEFAULT_LIMIT,
     offset: Offset = 0,
-) -> Page[AuditEventRead]:
+) -> Page[FieldChange]:
     """Every change to one record (entity is the table name: project, sample, apparatus,
-    permeability_test ...), oldest first: field, old and new value, who, when."""
+    permeability_test ...), oldest first, field by field: old and new value, who, when."""
     audited = sorted(set(SQLModel.metadata.tables) - _NOT_AUDITED)
     if entity not in audited:
         message = f"entity: '{entity}' is not a kind of record; accepted: {', '.join(audited)}"
@@ -72,5 +65,5 @@ def record_history(
             message, detail=[{"loc": ["path", "entity"], "msg": message, "type": "enum"}]
         )
     events = history(session, entity, entity_id)
-    items = [AuditEventRead.model_validate(event) for event in events[offset : offset + limit]]
-    return Page[AuditEventRead](items=items, total=len(events), limit=limit, offset=offset)
+    items = events[offset : offset + limit]
+    return Page[FieldChange](items=items, total=len(events), limit=limit, offset=offset)

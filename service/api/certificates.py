@@ -84,6 +84,11 @@ class VerificationRead(BaseModel):
     superseded_by_code: str
     supersedes: str
     supersedes_code: str
+    checkpoint_seq: int | None = Field(
+        description="the signed log checkpoint the certificate was issued under"
+    )
+    confirmed: bool = Field(description="false when the stored state cannot be confirmed")
+    problem: str = Field(description="why the state cannot be confirmed (empty if it can)")
     pdf_url: str
 
 
@@ -110,6 +115,7 @@ def verification_read(found: CertificateStatus) -> VerificationRead:
     return VerificationRead(
         **{name: getattr(found, name) for name in found.__dataclass_fields__},
         headline=found.headline,
+        confirmed=found.confirmed,
         pdf_url=f"/verify/{found.verification_code}/pdf",
     )
 

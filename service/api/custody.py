@@ -49,5 +49,6 @@ def timeline(
 
 @router.get("/custody/verify", response_model=ChainReportRead)
 def verify(session: SessionDep, _user: LabStaff) -> ChainReportRead:
-    """Recompute every link of the custody chain; names the first row edited or deleted."""
+    """Recompute every link of the custody chains (one per sample) against the signed
+    checkpoints; names the first row edited or deleted and its sample."""
     return verify_chain(session, "custody")

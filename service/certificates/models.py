@@ -1,4 +1,5 @@
-"""Issued certificates: frozen PDF bytes, their hash, the lab's signature and revisions."""
+"""Issued certificates: frozen PDF bytes, their hash, the lab's signatures (of the PDF and of
+its state) and revisions; and every signing key the lab has used."""
 
 from __future__ import annotations
 
@@ -42,6 +43,15 @@ class Certificate(SQLModel, table=True):
     signature: str = Field(max_length=200)  # base64 Ed25519 signature of the PDF bytes
     key_id: str = Field(max_length=64)
     verification_code: str = Field(max_length=20, unique=True)
+    # The signed state record (service/certificates/signing.py: state_statement): state,
+    # its change count and time, the successor; re-signed at every change of state.
+    state_seq: int = 1
+    state_changed_at: datetime | None = timestamp_field()
+    state_signature: str = Field(default="", max_length=200)
+    state_key_id: str = Field(default="", max_length=64)
+    # The signed checkpoint made when this certificate was issued (it anchors its record);
+    # no foreign key: the number is taken before the checkpoint is written, in one transaction.
+    checkpoint_seq: int | None = None
 
 
 class CertificateTest(SQLModel, table=True):
@@ -52,3 +62,22 @@ class CertificateTest(SQLModel, table=True):
 
     certificate_id: int = Field(foreign_key="certificate.id", primary_key=True)
     test_id: int = Field(foreign_key="permeability_test.id", primary_key=True)
+
+
+class PublishedKey(SQLModel, table=True):
+    """A public key the lab has signed with, and when. A key other than the configured one is
+    trusted only through a trusted key's signature: its successor's endorsement (over the key
+    and its whole validity period, made when it was retired) or its predecessor's
+    introduction (over the key and its start, made when it took over)."""
+
+    __tablename__ = "signing_key"
+
+    key_id: str = Field(primary_key=True, max_length=64)
+    algorithm: str = Field(default="Ed25519", max_length=20)
+    public_key: str = Field(max_length=100)  # base64 of the raw 32-byte Ed25519 key
+    valid_from: datetime = created_at_field()
+    valid_until: datetime | None = timestamp_field()
+    endorsed_by: str = Field(default="", max_length=64)
+    endorsement: str = Field(default="", max_length=200)
+    introduced_by: str = Field(default="", max_length=64)
+    introduction: str = Field(default="", max_length=200)

@@ -3,12 +3,18 @@
 Issuing freezes a certificate: the PDF bytes are stored with their SHA-256 and the lab's
 Ed25519 signature, and the tests it reports move to 'issued'. A correction is issued as the
 next revision of the same certificate number, which supersedes the old one; the old PDF is
-kept and the verification page says what replaced it."""
+kept and the verification page says what replaced it.
+
+The certificate's state (issued, superseded, withdrawn, with times and successor) is a signed
+record too (`state_statement`), re-signed at every change; every issue and withdrawal makes a
+signed checkpoint of the logs, and the certificate records the one it was issued under.
+Checking a certificate verifies both signatures with the key that was valid when each was
+made (the key history of service/certificates/signing.py)."""
 
 from __future__ import annotations
 
 import secrets
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -17,11 +23,21 @@ from sqlmodel import Session, col, select
 
 from service.access import get_visible, is_client
 from service.accounts.models import User
-from service.audit.service import apply_changes, record_created
+from service.audit import chain, checkpoints
+from service.audit.models import AuditEvent, ChainHead
+from service.audit.service import apply_changes, decode_changes, record_created
 from service.certificates.document import build_document
 from service.certificates.models import Certificate, CertificateTest
 from service.certificates.render import render_pdf
-from service.certificates.signing import load_signing_key, sha256_hex, verify_signature
+from service.certificates.signing import (
+    TrustedKey,
+    key_check,
+    load_signing_key,
+    register_key,
+    sha256_hex,
+    timestamp,
+    trusted_keys,
+)
 from service.common import CertificateKind, CertificateState, Role, SignOffMeaning, TestState
 from service.db import utcnow
 from service.errors import InvalidInput, InvalidTransition, NotFound, PermissionDenied
@@ -127,6 +143,9 @@ def _freeze(
         supersede_reason=reason,
     )
     pdf = render_pdf(document)
+    # Taken after rendering: certificate issues wait for each other only from here to commit.
+    checkpoint_seq = checkpoints.reserve(session)
+    register_key(session, key, now)
     certificate = Certificate(
         number=number,
         revision=revision,
@@ -143,7 +162,12 @@ def _freeze(
         signature=key.sign(pdf),
         key_id=key.key_id,
         verification_code=code,
+        checkpoint_seq=checkpoint_seq,
+        state_seq=1,
+        state_changed_at=now,
+        state_key_id=key.key_id,
     )
+    certificate.state_signature = key.sign(state_statement(certificate, ""))
     session.add(certificate)
     session.flush()
     assert certificate.id is not None
@@ -156,9 +180,76 @@ def _freeze(
         changes: dict[str, Any] = {"superseded_by_id": certificate.id}
         if previous.state == CertificateState.ISSUED:
             changes["state"] = CertificateState.SUPERSEDED
-        apply_changes(session, previous, changes, actor_id=actor.id)
+        restate(session, previous, changes, successor=certificate, actor=actor, now=now)
     session.flush()
     return certificate
+
+
+_STATE_FIELDS = (
+    "verification_code",
+    "number",
+    "revision",
+    "sha256",
+    "issued_at",
+    "checkpoint_seq",
+    "state",
+    "state_seq",
+    "state_changed_at",
+)
+
+
+def state_statement(
+    certificate: Certificate, successor_code: str, changes: Mapping[str, Any] | None = None
+) -> bytes:
+    """What a certificate's state signature signs (its columns, with `changes` applied), as
+    UTF-8 lines:
+
+        seepline certificate state 1
+        code <verification code>
+        number <number>
+        revision <revision>
+        sha256 <SHA-256 of the PDF, hex>
+        issued <ISO 8601 UTC>
+        checkpoint <sequence of the checkpoint it was issued under, or ->
+        state <issued | superseded | withdrawn>
+        state_seq <1 at issue, +1 at each change>
+        changed <ISO 8601 UTC of the last change>
+        superseded_by <verification code of the successor, or ->
+    """
+    values = {name: getattr(certificate, name) for name in _STATE_FIELDS} | dict(changes or {})
+    changed = values["state_changed_at"] or values["issued_at"]
+    lines = [
+        "seepline certificate state 1",
+        f"code {values['verification_code']}",
+        f"number {values['number']}",
+        f"revision {values['revision']}",
+        f"sha256 {values['sha256']}",
+        f"issued {timestamp(values['issued_at'])}",
+        f"checkpoint {values['checkpoint_seq'] or '-'}",
+        f"state {values['state']}",
+        f"state_seq {values['state_seq']}",
+        f"changed {timestamp(changed)}",
+        f"superseded_by {successor_code or '-'}",
+    ]
+    return "".join(line + "\n" for line in lines).encode()
+
+
+def restate(
+    session: Session,
+    certificate: Certificate,
+    changes: dict[str, Any],
+    *,
+    successor: Certificate | None,
+    actor: User,
+    now: datetime,
+) -> None:
+    """Change a certificate's state fields and re-sign its state record, in one audit row."""
+    key = load_signing_key()
+    changes = {**changes, "state_seq": certificate.state_seq + 1, "state_changed_at": now}
+    successor_code = successor.verification_code if successor else ""
+    changes["state_signature"] = key.sign(state_statement(certificate, successor_code, changes))
+    changes["state_key_id"] = key.key_id
+    apply_changes(session, certificate, changes, actor_id=actor.id)
 
 
 def issue_sample_certificate(
@@ -226,7 +317,14 @@ def issue_sample_certificate(
             and any(t.series == test.series and t.revision > test.revision for t in tests)
         ):
             apply_changes(session, test, {"state": TestState.SUPERSEDED}, actor_id=actor.id)
+    _anchor(session, certificate, now)
     return certificate
+
+
+def _anchor(session: Session, certificate: Certificate, now: datetime) -> None:
+    """The checkpoint the certificate names: it signs the heads this issue moved."""
+    made = checkpoints.make_checkpoint(session, reason="certificate", now=now)
+    assert made.seq == certificate.checkpoint_seq, "the checkpoint lock was not held"
 
 
 def _sign_issued(
@@ -281,7 +379,7 @@ def issue_project_certificate(
     for sample_id in sorted({t.sample_id for t in tests}, key=lambda s: samples[s].lab_id):
         groups.append((samples[sample_id], [t for t in tests if t.sample_id == sample_id]))
     number = project_certificate_number(project)
-    return _freeze(
+    certificate = _freeze(
         session,
         kind=CertificateKind.PROJECT,
         project=project,
@@ -292,6 +390,8 @@ def issue_project_certificate(
         actor=actor,
         now=now,
     )
+    _anchor(session, certificate, now)
+    return certificate
 
 
 def withdraw_certificate(
@@ -326,16 +426,23 @@ def withdraw_certificate(
             "only an issued (current) certificate can be withdrawn",
             detail={"state": certificate.state},
         )
-    apply_changes(
+    now = now or utcnow()
+    # The checkpoint lock before the certificate's head, in the order issuing takes them.
+    checkpoints.reserve(session)
+    successor = (
+        session.get(Certificate, certificate.superseded_by_id)
+        if certificate.superseded_by_id
+        else None
+    )
+    restate(
         session,
         certificate,
-        {
-            "state": CertificateState.WITHDRAWN,
-            "withdrawn_at": now or utcnow(),
-            "reason": reason,
-        },
-        actor_id=actor.id,
+        {"state": CertificateState.WITHDRAWN, "withdrawn_at": now, "reason": reason},
+        successor=successor,
+        actor=actor,
+        now=now,
     )
+    checkpoints.make_checkpoint(session, reason="certificate", now=now)
     return certificate
 
 
@@ -387,7 +494,10 @@ def tests_of(session: Session, certificate: Certificate) -> list[PermeabilityTes
 
 @dataclass(frozen=True)
 class CertificateStatus:
-    """What the public verification page shows about one certificate (no client details)."""
+    """What the public verification page shows about one certificate (no client details).
+
+    `problem` is set when the stored state cannot be confirmed (its signed state record or its
+    audit record does not match); the page then shows no state as fact."""
 
     verification_code: str
     number: str
@@ -407,20 +517,87 @@ class CertificateStatus:
     superseded_by_code: str
     supersedes: str
     supersedes_code: str
+    checkpoint_seq: int | None = None
+    problem: str = ""
+
+    @property
+    def confirmed(self) -> bool:
+        return not self.problem
 
     @property
     def headline(self) -> str:
-        if self.state == CertificateState.ISSUED:
-            return f"Certificate {self.number} rev {self.revision} is issued and current."
-        if self.state == CertificateState.SUPERSEDED:
+        name = f"Certificate {self.number} rev {self.revision}"
+        if self.problem:
             return (
-                f"Certificate {self.number} rev {self.revision} is superseded by "
-                f"{self.superseded_by}. Use the newer revision."
+                f"{name}: its state cannot be confirmed ({self.problem}). Do not rely on it; "
+                "ask the laboratory."
             )
-        text = f"Certificate {self.number} rev {self.revision} was withdrawn"
+        if self.state == CertificateState.ISSUED:
+            return f"{name} is issued and current."
+        if self.state == CertificateState.SUPERSEDED:
+            return f"{name} is superseded by {self.superseded_by}. Use the newer revision."
+        text = f"{name} was withdrawn"
         if self.superseded_by:
             text += f" and replaced by {self.superseded_by}"
         return text + "."
+
+
+def _record_problem(session: Session, certificate: Certificate) -> str:
+    """The certificate's own audit chain must hold and end in its present state record: a
+    state put back together with an older signature is caught here (the full walk against
+    the checkpoints is `seepline verify-logs`)."""
+    assert certificate.id is not None
+    key = f"certificate:{certificate.id}"
+    rows = session.exec(
+        select(AuditEvent).where(AuditEvent.chain == key).order_by(col(AuditEvent.seq))
+    ).all()
+    head = session.get(ChainHead, chain.head_name("audit", key))
+    found, _pending = chain.walk_chain(key, rows, head, ())
+    if found is not None:
+        return f"its audit record is broken: {found.problem}"
+    signed = ""
+    for row in rows:
+        signed = decode_changes(row).get("state_signature", {}).get("new") or signed
+    if signed != certificate.state_signature:
+        return "its state differs from the last state recorded in its audit record"
+    return ""
+
+
+def state_problem(
+    session: Session, certificate: Certificate, keys: dict[str, TrustedKey] | None = None
+) -> str:
+    """Empty when the signed state record and the audit record agree with the stored state."""
+    keys = keys if keys is not None else trusted_keys(session)
+    newer = (
+        session.get(Certificate, certificate.superseded_by_id)
+        if certificate.superseded_by_id
+        else None
+    )
+    problem = key_check(
+        keys,
+        certificate.state_key_id,
+        certificate.state_changed_at or certificate.issued_at,
+        state_statement(certificate, newer.verification_code if newer else ""),
+        certificate.state_signature,
+    )
+    if problem:
+        return f"its signed state record does not match: {problem}"
+    return _record_problem(session, certificate)
+
+
+def pdf_problem(
+    session: Session,
+    certificate: Certificate,
+    data: bytes | None = None,
+    keys: dict[str, TrustedKey] | None = None,
+) -> str:
+    """Empty when `data` (default: the stored PDF) hashes to the certificate's SHA-256 and
+    carries the lab's signature by the key valid when it was issued."""
+    data = certificate.pdf if data is None else data
+    if sha256_hex(data) != certificate.sha256:
+        return "the file differs from the one issued"
+    keys = keys if keys is not None else trusted_keys(session)
+    return key_check(keys, certificate.key_id, certificate.issued_at, data, certificate.signature)
 
 
 def certificate_status(session: Session, certificate: Certificate) -> CertificateStatus:
@@ -435,13 +612,14 @@ def certificate_status(session: Session, certificate: Certificate) -> Certificat
     older = (
         session.get(Certificate, certificate.supersedes_id) if certificate.supersedes_id else None
     )
+    problem = state_problem(session, certificate)
     return CertificateStatus(
         verification_code=certificate.verification_code,
         number=certificate.number,
         revision=certificate.revision,
         kind=certificate.kind,
         state=certificate.state,
-        is_current=certificate.state == CertificateState.ISSUED,
+        is_current=certificate.state == CertificateState.ISSUED and not problem,
         issued_at=certificate.issued_at,
         issued_by=issuer.full_name if issuer else "-",
         lab_name=lab_party(session).name,
@@ -454,6 +632,8 @@ def certificate_status(session: Session, certificate: Certificate) -> Certificat
         superseded_by_code=newer.verification_code if newer else "",
         supersedes=f"{older.number} rev {older.revision}" if older else "",
         supersedes_code=older.verification_code if older else "",
+        checkpoint_seq=certificate.checkpoint_seq,
+        problem=problem,
     )
 
 
@@ -469,7 +649,8 @@ class UploadCheck:
 
 
 def check_upload(session: Session, data: bytes) -> UploadCheck:
-    """Genuine means: the bytes hash to a stored certificate AND the lab's signature verifies."""
+    """Genuine means: the bytes hash to a stored certificate AND its signature verifies with
+    the lab's key that was valid when it was issued. Current needs its state confirmed too."""
     digest = sha256_hex(data)
     if not data.startswith(b"%PDF-"):
         return UploadCheck(
@@ -486,26 +667,38 @@ def check_upload(session: Session, data: bytes) -> UploadCheck:
             None,
         )
     status = certificate_status(session, certificate)
-    key = load_signing_key()
-    if certificate.key_id != key.key_id:
-        return UploadCheck(
-            digest,
-            False,
-            False,
-            f"Cannot confirm: the certificate was signed with key {certificate.key_id}, "
-            f"not the laboratory's published key {key.key_id}.",
-            status,
-        )
-    if not verify_signature(key.public_key, data, certificate.signature):
-        return UploadCheck(
-            digest,
-            False,
-            False,
-            "Not genuine: the stored signature does not verify against this file.",
-            status,
-        )
-    if status.is_current:
+    problem = pdf_problem(session, certificate, data)
+    if problem:
+        return UploadCheck(digest, False, False, f"Cannot confirm: {problem}.", status)
+    if not status.confirmed:
+        message = f"Genuine file, but {status.headline[0].lower()}{status.headline[1:]}"
+    elif status.is_current:
         message = f"Genuine and current: {status.headline}"
     else:
         message = f"Genuine, but not current: {status.headline}"
     return UploadCheck(digest, True, status.is_current, message, status)
+
+
+def sign_missing_states(session: Session) -> int:
+    """Sign the state record of certificates issued before states were signed (run by
+    `seepline migrate`, which only the lab runs); answers how many."""
+    unsigned = session.exec(select(Certificate).where(Certificate.state_signature == "")).all()
+    if not unsigned:
+        return 0
+    key = load_signing_key()
+    register_key(session, key, utcnow())
+    for certificate in unsigned:
+        newer = (
+            session.get(Certificate, certificate.superseded_by_id)
+            if certificate.superseded_by_id
+            else None
+        )
+        changes: dict[str, Any] = {
+            "state_changed_at": certificate.withdrawn_at or certificate.issued_at,
+            "state_key_id": key.key_id,
+        }
+        changes["state_signature"] = key.sign(
+            state_statement(certificate, newer.verification_code if newer else "", changes)
+        )
+        apply_changes(session, certificate, changes, actor_id=None)
+    return len(unsigned)

@@ -1,4 +1,5 @@
-"""Chain of custody: an append-only, hash-chained log of what happened to each sample."""
+"""Chain of custody: an append-only, hash-chained log of what happened to each sample (one
+chain per sample; `seq` counts from 1 within the sample's chain)."""
 
 from __future__ import annotations
 
@@ -13,7 +14,7 @@ from service.common import CustodyKind, created_at_field, one_of
 class CustodyEvent(SQLModel, table=True):
     __tablename__ = "custody_event"
     __table_args__ = (
-        sa.UniqueConstraint("seq"),
+        sa.UniqueConstraint("sample_id", "seq"),
         one_of("kind", CustodyKind),
         sa.CheckConstraint("seq > 0", name="seq_positive"),
     )

@@ -70,13 +70,19 @@ class CustodyEventRead(BaseModel):
 
 
 class ChainReportRead(BaseModel):
-    """The verdict on a hash chain: every link holds, or the first row that breaks it."""
+    """The verdict on a log's hash chains (one per entity) against the signed checkpoints:
+    every link holds, or the first row that cannot be trusted."""
 
-    chain: str
+    chain: str = Field(description="the log: custody or audit")
     rows: int
     ok: bool
-    first_broken_seq: int | None
+    first_broken_seq: int | None = Field(description="within first_broken_chain")
+    first_broken_chain: str | None = Field(description="the entity, e.g. sample:17")
     problem: str
+    chains: int
+    unanchored_rows: int = Field(description="rows no signed checkpoint covers yet")
+    checkpoint: int | None = Field(description="the latest signed checkpoint")
+    broken_chains: list[str]
 
 
 def refuse_if_disposed(sample: Sample) -> None:
@@ -125,7 +131,7 @@ def record_custody(
         prev_hash="",
         row_hash="",
     )
-    chain.append(session, "custody", event)
+    chain.append(session, "custody", chain.custody_key(sample_id), event)
     changes: dict[str, object] = {}
     if kind == CustodyKind.DISPOSED:
         changes["disposed_at"] = occurred
@@ -205,7 +211,8 @@ def sample_timeline(session: Session, sample_id: int, *, user: User) -> Sequence
     return custody_timeline(session, sample.id)
 
 
-def verify_chain(session: Session, name: chain.ChainName) -> ChainReportRead:
-    """Walk the custody or audit chain; the first broken link, if any."""
+def verify_chain(session: Session, name: chain.LogName) -> ChainReportRead:
+    """Walk every chain of the custody or audit log against the signed checkpoints; the first
+    broken or missing row, if any."""
     report: ChainReport = chain.verify(session, name)
     return ChainReportRead(**report.as_dict())

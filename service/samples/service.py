@@ -14,7 +14,7 @@ from sqlmodel import Session, col, func, select
 
 from service.access import get_visible, is_client
 from service.accounts.models import User
-from service.audit.models import ChainHead
+from service.audit import chain
 from service.audit.service import apply_changes, record_created
 from service.certificates.models import Certificate, CertificateTest
 from service.common import CertificateState, CustodyKind, Priority, SampleType
@@ -317,9 +317,9 @@ def receive_samples(
 
 
 def _serialise_receptions(session: Session) -> None:
-    """Hold the custody chain's head row while numbering, so two concurrent batches on
-    PostgreSQL take lab IDs one after the other (SQLite's write lock already does)."""
-    session.exec(select(ChainHead).where(ChainHead.name == "custody").with_for_update()).all()
+    """Hold a named lock while numbering, so two concurrent batches on PostgreSQL take lab IDs
+    one after the other (SQLite's write lock already does)."""
+    chain.lock_name(session, "reception")
 
 
 # --- idempotency ---------------------------------------------------------------------------

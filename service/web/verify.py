@@ -1,18 +1,32 @@
 """The public certificate check: /verify/{code} (state, hash, signer), /verify (upload a PDF),
-and the lab's published signing key at /.well-known/seepline-signing-key. No sign-in needed."""
+the lab's signing keys (/.well-known/seepline-signing-key, the current one;
+/.well-known/seepline-signing-keys, every one with its validity period) and the signed
+checkpoints of the custody and audit logs (/.well-known/seepline-checkpoints, paged). No
+sign-in needed. The app also makes a checkpoint when the last is older than the configured
+interval (a background task here)."""
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
+import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from typing import Annotated, Any
 
-from fastapi import APIRouter, FastAPI, File, Request, UploadFile
+from fastapi import APIRouter, FastAPI, File, Query, Request, UploadFile
 from fastapi.responses import Response
 
-from service.certificates.service import certificate_status, check_upload, find_by_code
-from service.certificates.signing import ALGORITHM, load_signing_key
+from service.audit import checkpoints
+from service.certificates.service import (
+    certificate_status,
+    check_upload,
+    find_by_code,
+    pdf_problem,
+)
+from service.certificates.signing import ALGORITHM, load_signing_key, published_keys
 from service.config import get_settings
+from service.db import session_scope, utcnow
 from service.deps import OptionalUser, SessionDep
 from service.errors import NotFound
 from service.exchange.files import FileTooLarge, read_limited
@@ -20,13 +34,45 @@ from service.web.htmx import render
 from service.web.pages import layout_context
 
 WELL_KNOWN_KEY = "/.well-known/seepline-signing-key"
+WELL_KNOWN_KEYS = "/.well-known/seepline-signing-keys"
+WELL_KNOWN_CHECKPOINTS = "/.well-known/seepline-checkpoints"
+CHECKPOINT_PAGE = 100
+# How often the background task asks whether a checkpoint is due (at most the interval).
+POLL_SECONDS = 300.0
+log = logging.getLogger(__name__)
+
+
+def _checkpoint_if_due() -> int | None:
+    with session_scope() as session:
+        if not checkpoints.is_due(session, utcnow()):
+            return None
+    with session_scope(write=True) as session:
+        made = checkpoints.checkpoint_if_due(session)
+        return made.seq if made else None
+
+
+async def _checkpoints_at_intervals(minutes: int) -> None:
+    """Make the opportunistic checkpoint when due; a failure is logged and tried again."""
+    while True:
+        await asyncio.sleep(min(POLL_SECONDS, minutes * 60.0))
+        try:
+            await asyncio.to_thread(_checkpoint_if_due)
+        except Exception:  # a database hiccup must not end the task
+            log.exception("the interval checkpoint failed; trying again later")
 
 
 @asynccontextmanager
 async def require_signing_key(_app: FastAPI) -> AsyncIterator[None]:
-    """Start-up refuses to run without a signing key (production never generates one)."""
+    """Start-up refuses to run without a signing key (production never generates one), and
+    starts the interval checkpoints."""
     load_signing_key()
+    minutes = get_settings().checkpoint_interval_minutes
+    task = asyncio.create_task(_checkpoints_at_intervals(minutes)) if minutes > 0 else None
     yield
+    if task is not None:
+        task.cancel()
+        with contextlib.suppress(asyncio.CancelledError):
+            await task
 
 
 router = APIRouter(include_in_schema=False, lifespan=require_signing_key)
@@ -56,6 +102,44 @@ def signing_key() -> dict[str, Any]:
     }
 
 
+@router.get(WELL_KNOWN_KEYS, include_in_schema=True, tags=["certificates"])
+def signing_keys(session: SessionDep) -> dict[str, Any]:
+    """Every key the lab has signed with and the period each was in use, with the signature
+    that vouches for it: certificates and checkpoints verify with the key valid when they
+    were signed."""
+    listed = published_keys(session)
+    return {
+        "signed_statement": "seepline signing key 1 / key / public / valid_from / valid_until, "
+        "one per line; an endorsement (by the successor) includes valid_until, an "
+        "introduction (by the predecessor) has '-' there",
+        "keys": listed,
+    }
+
+
+@router.get(WELL_KNOWN_CHECKPOINTS, include_in_schema=True, tags=["certificates"])
+def checkpoint_list(
+    request: Request,
+    session: SessionDep,
+    after: Annotated[int, Query(ge=0, le=2**31 - 1, description="sequence to start after")] = 0,
+    limit: Annotated[int, Query(ge=1, le=CHECKPOINT_PAGE, description="page size")] = 100,
+) -> dict[str, Any]:
+    """The signed checkpoints of the custody and audit logs, oldest first; keep a copy:
+    `seepline verify-logs --checkpoints FILE` checks the logs against it."""
+    items = checkpoints.page(session, after=after, limit=limit)
+    latest = checkpoints.latest(session)
+    following = ""
+    if items and latest is not None and items[-1].seq < latest.seq:
+        following = f"{request.url.path}?after={items[-1].seq}&limit={limit}"
+    return {
+        "format": checkpoints.EXPORT_FORMAT,
+        "version": 1,
+        "latest": latest.seq if latest else None,
+        "items": [checkpoints.published(c) for c in items],
+        "next": following or None,
+        "body_layout": checkpoints.__doc__,
+    }
+
+
 @router.get("/verify")
 def verify_form(request: Request, user: OptionalUser) -> Response:
     return render(request, "verify/verify.html", layout_context(request, user))
@@ -78,9 +162,21 @@ def verify_page(
 
 
 @router.get("/verify/{verification_code}/pdf")
-def verify_pdf(verification_code: str, session: SessionDep) -> Response:
-    """The PDF as issued, for whoever holds its code (superseded and withdrawn ones too)."""
+def verify_pdf(
+    verification_code: str, request: Request, session: SessionDep, user: OptionalUser
+) -> Response:
+    """The PDF as issued, for whoever holds its code (superseded and withdrawn ones too); a
+    stored file that no longer matches its hash and signature is not served."""
     certificate = find_by_code(session, verification_code)
+    problem = pdf_problem(session, certificate)
+    if problem:
+        found = certificate_status(session, certificate)
+        return render(
+            request,
+            "verify/verify.html",
+            layout_context(request, user, status=found, pdf_error=problem),
+            status_code=409,
+        )
     return _pdf_response(
         certificate.pdf,
         f"{certificate.number}-rev{certificate.revision}.pdf",

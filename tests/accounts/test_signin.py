@@ -11,12 +11,12 @@ from datetime import timedelta
 
 import pytest
 from argon2 import PasswordHasher
-from sqlmodel import Session, select
+from sqlmodel import Session
 
 from service.accounts import signin
 from service.accounts.models import User
 from service.accounts.passwords import verify_password
-from service.audit.models import AuditEvent
+from service.audit.service import history
 from service.db import utcnow
 from service.errors import NotAuthenticated, PermissionDenied, TooManyAttempts
 from tests.accounts.conftest import PASSWORD
@@ -87,11 +87,8 @@ def test_lock_out_is_written_to_the_audit_trail(session: Session, technician: Us
     technician.failed_sign_ins = 4
     with pytest.raises(TooManyAttempts):
         signin.check_credentials(session, email=technician.email, password="wrong")
-    events = session.exec(
-        select(AuditEvent).where(
-            AuditEvent.entity == "app_user", AuditEvent.entity_id == technician.id
-        )
-    ).all()
+    assert technician.id is not None
+    events = history(session, "app_user", technician.id)
     assert [e.field for e in events] == ["locked_until"]
 
 

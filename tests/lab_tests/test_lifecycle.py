@@ -16,6 +16,7 @@ import pytest
 from sqlmodel import select
 
 from service.audit.models import AuditEvent
+from service.audit.service import decode_changes, history
 from service.common import ApparatusKind
 from service.engine import ENGINE_VERSION
 from service.idempotency.models import IdempotencyRecord
@@ -523,19 +524,20 @@ def test_a_client_reads_its_own_tests_only_and_never_writes(lab: Lab) -> None:
 
 def test_every_change_is_audited(lab: Lab) -> None:
     test_id = submitted_cv2(lab)
-    events = lab.session.exec(
-        select(AuditEvent).where(
-            AuditEvent.entity == "permeability_test", AuditEvent.entity_id == test_id
-        )
-    ).all()
+    events = history(lab.session, "permeability_test", test_id)
     states = [(e.old_value, e.new_value) for e in events if e.field == "state"]
     assert states == [(None, "planned"), ("planned", "running"), ("running", "submitted")]
     assert {e.actor_id for e in events if e.field == "state"} == {
         lab.manager.id,
         lab.technician.id,
     }
-    trial_events = lab.session.exec(select(AuditEvent).where(AuditEvent.entity == "trial")).all()
-    assert any(e.field == "entries" for e in trial_events)
+    trial_rows = lab.session.exec(select(AuditEvent).where(AuditEvent.entity == "trial")).all()
+    assert trial_rows
+    # The trial's creation is one audit row holding every field it was created with.
+    created = [decode_changes(row) for row in trial_rows if "test_id" in decode_changes(row)]
+    assert len(created) == 1
+    assert {"entries", "seq", "recorded_by_id"} <= set(created[0])
+    assert {row.chain for row in trial_rows} == {f"permeability_test:{test_id}"}
     sign_offs = lab.session.exec(select(SignOff).where(SignOff.test_id == test_id)).all()
     assert [s.meaning for s in sign_offs] == ["performed"]
 

@@ -147,6 +147,8 @@ ACCESS: dict[str, Access] = {
     "GET /api/v1/certificates/verify/{verification_code}": PUBLIC,
     "POST /api/v1/certificates/verify": PUBLIC,
     "GET /.well-known/seepline-signing-key": PUBLIC,
+    "GET /.well-known/seepline-signing-keys": PUBLIC,
+    "GET /.well-known/seepline-checkpoints": PUBLIC,
     # pages
     "GET /sign-in": PUBLIC,
     "POST /sign-in": PUBLIC,

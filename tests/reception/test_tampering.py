@@ -1,4 +1,5 @@
-"""The custody and audit chains detect a row altered or deleted directly in the database."""
+"""The custody and audit chains detect a row altered or deleted directly in the database, and
+name the sample (or record) whose chain broke and the row."""
 
 from __future__ import annotations
 
@@ -22,57 +23,74 @@ def _verify(client: TestClient, lab: Lab, chain: str) -> dict[str, object]:
     return dict(response.json())
 
 
+def _first_sample(client: TestClient, lab: Lab) -> int:
+    response = receive(client, lab, batch_body())
+    assert response.status_code == 201
+    return int(response.json()["samples"][0]["id"])
+
+
 def test_custody_row_altered_in_the_database_is_named(
     client: TestClient, session: Session, lab: Lab
 ) -> None:
-    assert receive(client, lab, batch_body()).status_code == 201
+    sample_id = _first_sample(client, lab)
     assert _verify(client, lab, "custody")["ok"] is True
-    _run_sql(session, "UPDATE custody_event SET place = 'Bench 9' WHERE seq = 2")
+    _run_sql(
+        session,
+        f"UPDATE custody_event SET place = 'Bench 9' WHERE sample_id = {sample_id} AND seq = 2",
+    )
     report = _verify(client, lab, "custody")
     assert report["ok"] is False
-    assert report["first_broken_seq"] == 2
-    assert report["problem"] == "row 2 was altered"
+    assert (report["first_broken_chain"], report["first_broken_seq"]) == (f"sample:{sample_id}", 2)
+    assert report["problem"] == f"sample:{sample_id}: row 2 was altered"
 
 
 def test_custody_row_deleted_in_the_middle_is_named(
     client: TestClient, session: Session, lab: Lab
 ) -> None:
-    receive(client, lab, batch_body())
-    _run_sql(session, "DELETE FROM custody_event WHERE seq = 2")
+    sample_id = _first_sample(client, lab)
+    _run_sql(session, f"DELETE FROM custody_event WHERE sample_id = {sample_id} AND seq = 1")
     report = _verify(client, lab, "custody")
-    assert (report["ok"], report["first_broken_seq"]) == (False, 2)
+    assert (report["ok"], report["first_broken_seq"]) == (False, 1)
     assert "missing" in str(report["problem"])
 
 
 def test_custody_tail_row_deleted_is_detected(
     client: TestClient, session: Session, lab: Lab
 ) -> None:
-    receive(client, lab, batch_body())
-    _run_sql(session, "DELETE FROM custody_event WHERE seq = 3")
+    sample_id = _first_sample(client, lab)
+    _run_sql(session, f"DELETE FROM custody_event WHERE sample_id = {sample_id} AND seq = 2")
     report = _verify(client, lab, "custody")
-    assert (report["ok"], report["first_broken_seq"]) == (False, 3)
+    assert (report["ok"], report["first_broken_seq"]) == (False, 2)
     assert "deleted" in str(report["problem"])
 
 
 def test_audit_row_altered_in_the_database_is_named(
     client: TestClient, session: Session, lab: Lab
 ) -> None:
-    receive(client, lab, batch_body())
+    sample_id = _first_sample(client, lab)
     assert _verify(client, lab, "audit")["ok"] is True
-    _run_sql(session, "UPDATE audit_event SET new_value = '9.99 m' WHERE seq = 4")
+    _run_sql(
+        session,
+        "UPDATE audit_event SET changes = REPLACE(changes, '1.50 m', '9.99 m') "
+        f"WHERE chain = 'sample:{sample_id}' AND seq = 1",
+    )
     report = _verify(client, lab, "audit")
-    assert (report["ok"], report["first_broken_seq"]) == (False, 4)
+    assert (report["ok"], report["first_broken_chain"]) == (False, f"sample:{sample_id}")
+    assert report["first_broken_seq"] == 1
 
 
 def test_verify_logs_command_reports_the_broken_row(
     client: TestClient, session: Session, lab: Lab, capsys: object
 ) -> None:
-    receive(client, lab, batch_body())
+    sample_id = _first_sample(client, lab)
     assert seepline(["verify-logs"]) == 0
-    _run_sql(session, "UPDATE custody_event SET note = 'edited' WHERE seq = 1")
+    _run_sql(
+        session,
+        f"UPDATE custody_event SET note = 'edited' WHERE sample_id = {sample_id} AND seq = 1",
+    )
     assert seepline(["verify-logs"]) == 1
     out = capsys.readouterr().out  # type: ignore[attr-defined]
-    assert "custody: BROKEN at row 1" in out
+    assert f"custody log: BROKEN at sample:{sample_id} row 1" in out
 
 
 def test_clients_cannot_run_verification(client: TestClient, lab: Lab) -> None:
