@@ -92,7 +92,9 @@ def _serve(args: argparse.Namespace) -> int:
         port=args.port or settings.port,
         workers=args.workers,
         reload=args.reload,
-        proxy_headers=True,
+        # The app applies FORWARDED_ALLOW_IPS itself (service/main.py); uvicorn's own
+        # handling (which reads the same variable) stays off so it cannot widen it.
+        proxy_headers=False,
     )
     return 0
 

@@ -12,6 +12,7 @@ from sqlmodel import Session, col, select
 
 from service.accounts.models import AccessToken, Organisation, User
 from service.accounts.passwords import hash_password
+from service.accounts.throttle import clear_failures
 from service.accounts.tokens import revoke
 from service.audit.service import apply_changes, record_change, record_created
 from service.common import DisplayUnits, OrganisationKind, Role
@@ -251,7 +252,8 @@ def update_user(
 
 
 def unlock_user(session: Session, user: User, *, actor: User) -> User:
-    """Clear the failed sign-in count and any back-off or lock-out."""
+    """Clear the failed sign-in counts and any back-off or lock-out."""
+    clear_failures(session, user.email)
     apply_changes(session, user, {"failed_sign_ins": 0, "locked_until": None}, actor_id=actor.id)
     return user
 

@@ -20,6 +20,7 @@ from service.engine.units import CONDUCTIVITY, LENGTH, Kind, parse_quantity
 from service.errors import Conflict, InvalidInput, NotFound, StaleVersion
 from service.projects.models import Location, Project
 from service.queue import paginate
+from service.text import Identifier
 
 # --- shared helpers ------------------------------------------------------------------------
 
@@ -124,7 +125,7 @@ class ProjectRead(BaseModel):
 
 
 class LocationCreate(_Strict):
-    name: str = Field(min_length=1, max_length=60, description="e.g. 'BH-03' or 'TP-2'")
+    name: Identifier = Field(min_length=1, max_length=60, description="e.g. 'BH-03' or 'TP-2'")
     kind: LocationKind
     easting_m: float | None = Field(default=None, allow_inf_nan=False)
     northing_m: float | None = Field(default=None, allow_inf_nan=False)
