@@ -29,9 +29,9 @@ from itsdangerous import BadSignature, URLSafeTimedSerializer
 from sqlmodel import Session, select
 
 from service.accounts.models import AccessToken, SignInThrottle, User
+from service.accounts.password_policy import MAX_PASSWORD_LENGTH
 from service.accounts.passwords import hash_password, needs_rehash, verify_password
 from service.accounts.service import (
-    MAX_PASSWORD_LENGTH,
     check_password_strength,
     field_error,
     normalise_email,
@@ -312,7 +312,9 @@ def change_password(
     were revoked."""
     assert user.id is not None
     confirm_password(session, user, current_password, field="current_password")
-    check_password_strength(new_password, field="new_password")
+    check_password_strength(
+        new_password, field="new_password", email=user.email, full_name=user.full_name
+    )
     if new_password == current_password:
         raise field_error("new_password", "must differ from the current password")
     user.password_hash = hash_password(new_password)

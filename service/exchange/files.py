@@ -21,6 +21,7 @@ from typing import Any, Protocol
 import anyio.to_thread
 
 from service.errors import InvalidInput, ServiceError
+from service.text import control_character_message
 
 CHUNK = 64 * 1024
 MAX_ROWS = 5000
@@ -131,7 +132,7 @@ def read_table(data: bytes, filename: str, *, field: str = "file") -> Table:
             f"{field}: '{filename}' has no rows; accepted: a header row and data rows",
             "empty_file",
         )
-    _refuse_oversized(rows, filename, field)
+    _refuse_bad_cells(rows, filename, field)
     header = [cell.strip() for cell in rows[0]]
     if not any(header):
         raise _refuse(
@@ -155,8 +156,9 @@ def _mib(size: int) -> str:
     return f"{size / (1024 * 1024):.1f} MiB"
 
 
-def _refuse_oversized(rows: list[list[str]], filename: str, field: str) -> None:
-    """Refuse a table with too many columns or an over-long cell, naming the first place."""
+def _refuse_bad_cells(rows: list[list[str]], filename: str, field: str) -> None:
+    """Refuse a table with too many columns, an over-long cell or a control character,
+    naming the first place."""
     for number, row in enumerate(rows, start=1):
         filled = [i for i, cell in enumerate(row) if cell]
         if filled and filled[-1] >= MAX_COLUMNS:
@@ -173,6 +175,13 @@ def _refuse_oversized(rows: list[list[str]], filename: str, field: str) -> None:
                     f"{field}: row {number}, column {column} of '{filename}' holds "
                     f"{len(cell)} characters; accepted: at most {MAX_CELL_CHARS} in a cell",
                     "cell_too_long",
+                )
+            message = control_character_message(cell)
+            if message:
+                raise _refuse(
+                    field,
+                    f"{field}: row {number}, column {column} of '{filename}' {message}",
+                    "control_character",
                 )
 
 
