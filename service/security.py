@@ -29,6 +29,7 @@ Limits (all per process, in memory; several uvicorn workers each keep their own)
 from __future__ import annotations
 
 import inspect
+import logging
 import math
 import threading
 import time
@@ -49,8 +50,9 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.accounts.signin import DEVICE_COOKIE, read_device_cookie
 from service.config import get_settings
 from service.deps import SESSION_COOKIE, OptionalUser
-from service.errors import PermissionDenied, ServiceError, TooManyAttempts
+from service.errors import PermissionDenied, ServiceError, TooManyAttempts, Unavailable
 
+LOG = logging.getLogger("seepline")
 Handler = Callable[[Request, Any], Response | Awaitable[Response]]
 
 API_PREFIX = "/api/"
@@ -89,6 +91,7 @@ SIGN_IN_REFUSED = frozenset({401, 429})
 # Memory bound: the least recently failing addresses are forgotten beyond this many.
 MAX_TRACKED_ADDRESSES = 10_000
 
+DATABASE_RETRY_SECONDS = 5
 HIDDEN = "[hidden]"
 # The smallest integer column of both databases (PostgreSQL INTEGER, the ids) holds this much.
 LARGEST_WHOLE_NUMBER = 2**31 - 1
@@ -431,8 +434,9 @@ def unstorable_kind(exc: BaseException) -> str | None:
     # PostgreSQL SQLSTATE 22003 numeric_value_out_of_range (psycopg's NumericValueOutOfRange).
     if getattr(original, "sqlstate", "") == "22003":
         return "out_of_range"
-    # psycopg refuses NUL in text before sending it ("cannot contain NUL (0x00) bytes").
-    if "NUL (0x00)" in str(original):
+    # psycopg refuses NUL in text before sending it ("cannot contain NUL (0x00) bytes");
+    # PostgreSQL refuses \u0000 in JSONB (SQLSTATE 22P05 untranslatable_character).
+    if "NUL (0x00)" in str(original) or getattr(original, "sqlstate", "") == "22P05":
         return "nul_character"
     return None
 
@@ -463,9 +467,9 @@ def install_security(app: FastAPI) -> None:
             )
         return await _call(_lookup(app, StarletteHTTPException), request, exc)
 
-    async def too_many(request: Request, exc: Exception) -> Response:
-        assert isinstance(exc, TooManyAttempts)
-        response = await _call(_lookup(app, ServiceError, skip=too_many), request, exc)
+    async def with_retry_after(request: Request, exc: Exception) -> Response:
+        assert isinstance(exc, TooManyAttempts | Unavailable)
+        response = await _call(_lookup(app, ServiceError, skip=with_retry_after), request, exc)
         wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
         if isinstance(wait, int | float) and math.isfinite(wait) and wait > 0:
             response.headers["Retry-After"] = str(math.ceil(wait))
@@ -484,7 +488,22 @@ def install_security(app: FastAPI) -> None:
     app.add_exception_handler(OverflowError, unstorable)
     app.add_exception_handler(sa.exc.DataError, unstorable)
     app.add_exception_handler(RequestBodyTooLarge, too_large)
-    app.add_exception_handler(TooManyAttempts, too_many)
+    app.add_exception_handler(TooManyAttempts, with_retry_after)
+    app.add_exception_handler(Unavailable, with_retry_after)
+
+    async def database_unavailable(request: Request, exc: Exception) -> Response:
+        # A dropped connection, a database that is down or restarting, a pool or lock that
+        # stayed busy: nothing the caller did wrong, and worth trying again shortly.
+        LOG.warning("database unavailable for %s %s: %r", request.method, request.url.path, exc)
+        unavailable = Unavailable(
+            "the database is not answering just now; nothing was changed, try again in "
+            f"{DATABASE_RETRY_SECONDS} s",
+            detail={"retry_after_seconds": DATABASE_RETRY_SECONDS},
+        )
+        return await with_retry_after(request, unavailable)
+
+    for unreachable in (sa.exc.OperationalError, sa.exc.InterfaceError, sa.exc.TimeoutError):
+        app.add_exception_handler(unreachable, database_unavailable)
     app.state.reduction_limiter = AddressLimiter(
         limit=REDUCTIONS_PER_ADDRESS, window=REDUCTIONS_WINDOW, backoff=None
     )

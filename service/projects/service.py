@@ -225,11 +225,13 @@ def list_projects(
     if client_id is not None:
         query = query.where(Project.client_id == client_id)
     if search:
-        pattern = f"%{search.strip().lower()}%"
+        # The text is searched for as typed: % and _ are not wildcards here.
+        escaped = search.strip().lower().replace("\\", "\\\\").replace("%", "\\%")
+        pattern = "%" + escaped.replace("_", "\\_") + "%"
         query = query.where(
-            col(Project.number).ilike(pattern)
-            | col(Project.name).ilike(pattern)
-            | col(Project.site).ilike(pattern)
+            col(Project.number).ilike(pattern, escape="\\")
+            | col(Project.name).ilike(pattern, escape="\\")
+            | col(Project.site).ilike(pattern, escape="\\")
         )
     query = query.order_by(col(Project.created_at).desc(), col(Project.id).desc())
     return paginate(session, query, limit=limit, offset=offset)

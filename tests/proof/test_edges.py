@@ -251,6 +251,18 @@ def test_forwarded_for_is_believed_only_from_the_named_proxy(
     assert seen == ["testclient", "198.51.100.7"]
 
 
+def test_the_compose_file_believes_only_its_own_gateway() -> None:
+    import yaml
+
+    from service.db import PROJECT_ROOT
+
+    compose = yaml.safe_load((PROJECT_ROOT / "docker" / "compose.yaml").read_text())
+    trusted = compose["x-app"]["environment"]["FORWARDED_ALLOW_IPS"]
+    gateway = compose["networks"]["default"]["ipam"]["config"][0]["gateway"]
+    assert "*" not in trusted
+    assert trusted == f"${{FORWARDED_ALLOW_IPS:-{gateway}}}"
+
+
 def test_production_refuses_to_believe_every_proxy(monkeypatch: pytest.MonkeyPatch) -> None:
     from pydantic import ValidationError
 
