@@ -14,8 +14,10 @@ Limits (all per process, in memory; several uvicorn workers each keep their own)
   or 429) within `SIGN_IN_WINDOW` the address may try once every `SIGN_IN_ADDRESS_BACKOFF`
   seconds (429 with Retry-After in between): a short back-off, never a lock-out, so a lab
   behind one address still signs in. A browser holding a genuine device cookie (it signed in
-  before) is not limited by address at all. This sits on top of the per-account and per-device
-  limits of service/accounts/signin.py, which hold across workers (they live in the database).
+  before) is counted against its user instead of the address, so colleagues behind one
+  address do not share one count with an attacker there. This sits on top of the per-account
+  and per-device limits of service/accounts/signin.py, which hold across workers (they live
+  in the database).
   Sign-in posts whose Origin (or Referer) is another site are refused (login CSRF).
 - The reduction endpoint, open to anonymous callers: they get `REDUCTIONS_PER_ADDRESS` calls
   per `REDUCTIONS_WINDOW` per address and a smaller body (`anonymous_reduction_max_bytes`);
@@ -210,10 +212,13 @@ def _has_credentials(scope: Scope) -> bool:
     return "authorization" in headers or SESSION_COOKIE in cookie_parser(headers.get("cookie", ""))
 
 
-def _trusted_device(scope: Scope) -> bool:
-    """Whether the request carries a genuine device cookie (checked by its signature only)."""
+def _limit_key(scope: Scope) -> str:
+    """What refused sign-ins are counted against here: the user of a genuine device cookie
+    (checked by its signature; each user one bucket, however many cookies they collect), else
+    the client address."""
     cookies = cookie_parser(Headers(scope=scope).get("cookie", ""))
-    return read_device_cookie(cookies.get(DEVICE_COOKIE)) is not None
+    device = read_device_cookie(cookies.get(DEVICE_COOKIE))
+    return f"device-user:{device[0]}" if device else _client_address(scope)
 
 
 def _own_origin(scope: Scope) -> set[str]:
@@ -267,7 +272,6 @@ class SecurityMiddleware:
             await send(message)
 
         sign_in = method == "POST" and path in SIGN_IN_PATHS
-        address = _client_address(scope)
         if sign_in and cross_site(scope):
             refusal = PermissionDenied(
                 "sign-in refused: the form was sent from another site; open this service's own "
@@ -275,8 +279,8 @@ class SecurityMiddleware:
             )
             await self._answer(scope, receive, send_with_headers, refusal)
             return
-        limited = sign_in and not _trusted_device(scope)
-        if limited and (wait := self.limiter.wait_seconds(address)) is not None:
+        key = _limit_key(scope)
+        if sign_in and (wait := self.limiter.wait_seconds(key)) is not None:
             exc = TooManyAttempts(
                 f"too many refused sign-ins from your address: try again in {wait} s",
                 detail={"retry_after_seconds": wait},
@@ -308,8 +312,8 @@ class SecurityMiddleware:
             if response_started:
                 raise
             await self._answer(scope, receive, send_with_headers, exc)
-        if limited and status_code in SIGN_IN_REFUSED:
-            self.limiter.record(address)
+        if sign_in and status_code in SIGN_IN_REFUSED:
+            self.limiter.record(key)
 
     async def _answer(self, scope: Scope, receive: Receive, send: Send, exc: Exception) -> None:
         """Render `exc` with the app's own exception handlers, as if a route had raised it."""

@@ -234,7 +234,7 @@ def test_a_slow_file_is_parsed_off_the_event_loop(
     real = files.read_table
 
     def slow_read_table(*args: Any, **kwargs: Any) -> Any:
-        time.sleep(1.5)  # a big, legitimate workbook
+        time.sleep(2.0)  # a big, legitimate workbook, parsed while /healthz is timed
         return real(*args, **kwargs)
 
     monkeypatch.setattr(files, "read_table", slow_read_table)
@@ -244,9 +244,11 @@ def test_a_slow_file_is_parsed_off_the_event_loop(
         client, lambda: post_schedule(client, headers, world.project.id, schedule)
     )
     assert status == 200
-    assert elapsed >= 1.5
+    assert elapsed >= 2.0
     assert len(latencies) > 3
-    assert max(latencies) < 0.5, latencies
+    # On the event loop the parse would hold every /healthz for the whole 2 s; off it, each
+    # answers in milliseconds (a generous bound: the machine may be busy with other work).
+    assert max(latencies) < 1.0, latencies
 
 
 @pytest.mark.parametrize(
