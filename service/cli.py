@@ -60,6 +60,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     restore.add_argument("--database-url", help="default: DATABASE_URL")
 
     args = parser.parse_args(argv)
+    from service.stored_text import install as check_stored_text
+
+    check_stored_text()  # the same refusal of control characters as the served app
     handler = {
         "serve": _serve,
         "migrate": _migrate,

@@ -21,6 +21,7 @@ from service.config import get_settings
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.errors import ServiceError
 from service.security import install_security
+from service.stored_text import install as check_stored_text
 from service.web.errors import install_web_error_handling
 
 
@@ -42,6 +43,7 @@ def create_app() -> FastAPI:
         redoc_url=None,
         openapi_url=None,
     )
+    check_stored_text()  # no control character reaches the database, whatever the route
     app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
     _add_routes(app)
     app.add_exception_handler(ServiceError, _service_error)

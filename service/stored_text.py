@@ -1,4 +1,5 @@
-"""No control character reaches the database: every flush checks the text it would write.
+"""No control character reaches the database: every flush checks the text it would write
+(installed by create_app() and by service/models.py, which scripts and tests import).
 
 One check for every way in (JSON API, pages, uploaded schedules and readings, the command
 line): a text column, or a string inside a JSON column, holding a control character (see
@@ -52,6 +53,3 @@ def install() -> None:
     """Check every flush of every session (safe to call twice)."""
     if not sa.event.contains(Session, "before_flush", refuse_control_characters):
         sa.event.listen(Session, "before_flush", refuse_control_characters)
-
-
-install()

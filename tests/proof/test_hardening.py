@@ -7,6 +7,8 @@ Sources: RFC 9110 §15.6.4 (503 with Retry-After for a temporary condition), RFC
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from typing import Any
 
 import pytest
@@ -15,6 +17,7 @@ from sqlmodel import Session
 
 from service.api.reductions import EXAMPLES
 from service.config import get_settings
+from service.db import PROJECT_ROOT
 from service.security import REDUCTIONS_PER_ADDRESS
 from tests.auth_helpers import sign_in_cookie
 from tests.proof.conftest import Proof
@@ -115,6 +118,21 @@ def test_a_dropped_database_answers_a_503_page_on_the_web(proof: Proof, session:
     assert page.headers["retry-after"] == "5"
     assert page.headers["content-type"].startswith("text/html")
     assert "Briefly unavailable" in page.text
+
+
+def test_the_served_app_checks_every_flush_for_control_characters() -> None:
+    # The tests import every model (service/models.py) and with it the check; a served app
+    # imports only what its routes need, so create_app() must install the check itself.
+    script = (
+        "import sqlalchemy as sa, sqlalchemy.orm, sys\n"
+        "from service.main import create_app\n"
+        "from service.stored_text import refuse_control_characters as check\n"
+        "assert not sa.event.contains(sa.orm.Session, 'before_flush', check)\n"
+        "create_app()\n"
+        "sys.exit(0 if sa.event.contains(sa.orm.Session, 'before_flush', check) else 3)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", script], cwd=PROJECT_ROOT, check=False)
+    assert done.returncode == 0
 
 
 # --- caching and search -------------------------------------------------------------------------
