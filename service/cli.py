@@ -88,6 +88,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     restore.add_argument("--database-url", help="default: DATABASE_URL")
 
     args = parser.parse_args(argv)
+    from service.stored_text import install as check_stored_text
+
+    check_stored_text()  # the same refusal of control characters as the served app
     handler = {
         "serve": _serve,
         "migrate": _migrate,
@@ -123,7 +126,9 @@ def _serve(args: argparse.Namespace) -> int:
         port=args.port or settings.port,
         workers=args.workers,
         reload=args.reload,
-        proxy_headers=True,
+        # The app applies FORWARDED_ALLOW_IPS itself (service/main.py); uvicorn's own
+        # handling (which reads the same variable) stays off so it cannot widen it.
+        proxy_headers=False,
     )
     return 0
 

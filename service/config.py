@@ -31,6 +31,12 @@ class Settings(BaseSettings):
     argon2_memory_cost_kib: int = Field(default=65536, ge=8)
     session_hours: int = Field(default=12, ge=1)
     max_body_bytes: int = Field(default=5 * 1024 * 1024, ge=1024)
+    # POST /api/v1/reductions without a token or session: the largest body accepted.
+    anonymous_reduction_max_bytes: int = Field(default=256 * 1024, ge=1024)
+    # Addresses (or networks, comma-separated) of the reverse proxy whose X-Forwarded-For and
+    # X-Forwarded-Proto are believed. Empty: none are; '*' (any address) is refused in
+    # production, as any client could then choose its own address.
+    forwarded_allow_ips: str = ""
     # Ed25519 key (PKCS#8 PEM) that signs issued certificates. Empty: ./var/signing_key.pem,
     # generated once in development and test; production refuses to start without one.
     signing_key_path: str = ""
@@ -55,6 +61,20 @@ class Settings(BaseSettings):
                 )
             self.secret_key = _development_secret()
         return self
+
+    @model_validator(mode="after")
+    def _proxy_is_named(self) -> Settings:
+        if self.environment == "production" and "*" in self.forwarded_allow_ips:
+            raise ValueError(
+                "FORWARDED_ALLOW_IPS='*' believes X-Forwarded-For from anyone, so any client "
+                "could choose its address and escape the sign-in limits; set it to the "
+                "address (or network) of your reverse proxy, e.g. 127.0.0.1"
+            )
+        return self
+
+    @property
+    def trusted_proxies(self) -> list[str]:
+        return [part.strip() for part in self.forwarded_allow_ips.split(",") if part.strip()]
 
     @property
     def is_sqlite(self) -> bool:

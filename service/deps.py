@@ -12,12 +12,13 @@ import weakref
 from collections.abc import AsyncIterator, Callable, Iterator
 from typing import Annotated, Any
 
-from fastapi import Depends, Request
+from fastapi import Depends, Request, Response
 from fastapi.concurrency import run_in_threadpool
 from itsdangerous import BadSignature, URLSafeSerializer
 from sqlmodel import Session
 
 from service.accounts.models import AccessToken, User
+from service.accounts.signin import DEVICE_COOKIE, DEVICE_COOKIE_DAYS
 from service.accounts.tokens import find_live_token
 from service.common import Role, TokenKind
 from service.config import get_settings
@@ -72,6 +73,36 @@ def cookie_serializer() -> URLSafeSerializer:
 
 def sign_session_cookie(raw_token: str) -> str:
     return cookie_serializer().dumps(raw_token)
+
+
+def set_session_cookie(response: Response, request: Request, raw_token: str) -> None:
+    """The signed, httponly session cookie of a new sign-in session."""
+    response.set_cookie(
+        SESSION_COOKIE,
+        sign_session_cookie(raw_token),
+        max_age=get_settings().session_hours * 3600,
+        httponly=True,
+        samesite="lax",
+        secure=request.url.scheme == "https",
+    )
+
+
+def device_of(request: Request) -> str | None:
+    """The request's device cookie (checked by accounts.signin), if it sent one."""
+    return request.cookies.get(DEVICE_COOKIE)
+
+
+def set_device_cookie(response: Response, request: Request, value: str) -> None:
+    """Remember this browser as one its user signs in from (accounts.signin's limits)."""
+    response.set_cookie(
+        DEVICE_COOKIE,
+        value,
+        max_age=DEVICE_COOKIE_DAYS * 86400,
+        httponly=True,
+        samesite="strict",
+        secure=request.url.scheme == "https",
+        path="/",
+    )
 
 
 def _cookie_token(request: Request) -> str | None:

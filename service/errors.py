@@ -59,5 +59,13 @@ class TooManyAttempts(ServiceError):
     code = "too_many_attempts"
 
 
+class Unavailable(ServiceError):
+    """The service cannot answer just now (the database is unreachable); `detail` may carry
+    retry_after_seconds."""
+
+    status_code = 503
+    code = "unavailable"
+
+
 class DatabaseNotMigrated(RuntimeError):
     """Raised at start-up when the database is behind the code's migrations."""

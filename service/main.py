@@ -12,13 +12,16 @@ import sqlalchemy as sa
 from fastapi import APIRouter, FastAPI, Request
 from fastapi.responses import JSONResponse
 from fastapi.staticfiles import StaticFiles
+from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
 
 import service.api
 import service.web
 from service import __version__
+from service.config import get_settings
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.errors import ServiceError
 from service.security import install_security
+from service.stored_text import install as check_stored_text
 from service.web.errors import install_web_error_handling
 
 
@@ -29,17 +32,26 @@ async def lifespan(app: FastAPI) -> AsyncIterator[None]:
 
 
 def create_app() -> FastAPI:
+    # No /docs or /redoc (they load their scripts from a CDN); the OpenAPI document is served
+    # to signed-in users only (service/api/openapi.py).
     app = FastAPI(
         title="Seepline",
         version=__version__,
         summary="System of record for laboratory hydraulic conductivity testing of soils.",
         lifespan=lifespan,
+        docs_url=None,
+        redoc_url=None,
+        openapi_url=None,
     )
+    check_stored_text()  # no control character reaches the database, whatever the route
     app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
     _add_routes(app)
     app.add_exception_handler(ServiceError, _service_error)
     install_web_error_handling(app)  # pages get HTML errors; /api/ keeps the JSON above
     install_security(app)  # after: its validation handler wraps the one installed before
+    proxies = get_settings().trusted_proxies
+    if proxies:  # outermost: every part of the app sees the client's own address
+        app.add_middleware(ProxyHeadersMiddleware, trusted_hosts=proxies)
     return app
 
 

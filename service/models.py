@@ -17,6 +17,7 @@ from service.lab_tests.models import (
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
+from service.stored_text import install as install_stored_text_check
 
 __all__ = [
     "AccessToken",
@@ -42,3 +43,5 @@ __all__ = [
     "Trial",
     "User",
 ]
+
+install_stored_text_check()

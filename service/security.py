@@ -10,23 +10,35 @@ Limits (all per process, in memory; several uvicorn workers each keep their own)
 - Request bodies: `settings.max_body_bytes` (the certificate check upload: its own
   `verify_upload_max_bytes` plus the multipart envelope). A Content-Length over the limit is
   refused before anything is read; a body without one is counted as it streams in.
-- Sign-in: per client address, `SIGN_IN_FAILURES_PER_ADDRESS` refused sign-ins (401 or 429)
-  within `SIGN_IN_WINDOW` earn a 429 with Retry-After until the oldest of them ages out.
-  Successful sign-ins are never limited, so a whole lab behind one address can start its day.
-  This sits on top of the per-account back-off and lock-out of service/accounts/signin.py,
-  which holds across workers because it lives on the user row. Behind a reverse proxy, run
-  uvicorn with --proxy-headers and --forwarded-allow-ips so the client address is the real one.
+- Sign-in: per client address, after `SIGN_IN_FAILURES_PER_ADDRESS` refused sign-ins (401
+  or 429) within `SIGN_IN_WINDOW` the address may try once every `SIGN_IN_ADDRESS_BACKOFF`
+  seconds (429 with Retry-After in between): a short back-off, never a lock-out, so a lab
+  behind one address still signs in. A browser holding a genuine device cookie (it signed in
+  before) is counted against its user instead of the address, so colleagues behind one
+  address do not share one count with an attacker there. This sits on top of the per-account
+  and per-device limits of service/accounts/signin.py, which hold across workers (they live
+  in the database).
+  Sign-in posts whose Origin (or Referer) is another site are refused (login CSRF).
+- The reduction endpoint, open to anonymous callers: they get `REDUCTIONS_PER_ADDRESS` calls
+  per `REDUCTIONS_WINDOW` per address and a smaller body (`anonymous_reduction_max_bytes`);
+  signed-in callers are not limited.
+- The client address is the socket's peer unless FORWARDED_ALLOW_IPS names the reverse proxy
+  (service/main.py): a client-supplied X-Forwarded-For is never believed otherwise.
+- Every response but static files carries `Cache-Control: no-store` unless the route chose
+  its own: pages, exports and certificates hold a lab's and its clients' data.
 """
 
 from __future__ import annotations
 
 import inspect
+import logging
 import math
 import threading
 import time
 from collections import OrderedDict, deque
 from collections.abc import Awaitable, Callable
 from typing import Any
+from urllib.parse import urlsplit
 
 import sqlalchemy as sa
 from fastapi import FastAPI, Request
@@ -34,11 +46,15 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, Response
 from starlette.datastructures import Headers, MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.requests import cookie_parser
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
+from service.accounts.signin import DEVICE_COOKIE, read_device_cookie
 from service.config import get_settings
-from service.errors import ServiceError, TooManyAttempts
+from service.deps import SESSION_COOKIE, OptionalUser
+from service.errors import PermissionDenied, ServiceError, TooManyAttempts, Unavailable
 
+LOG = logging.getLogger("seepline")
 Handler = Callable[[Request, Any], Response | Awaitable[Response]]
 
 API_PREFIX = "/api/"
@@ -47,17 +63,6 @@ CONTENT_SECURITY_POLICY = (
     "default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
     "font-src 'self'; connect-src 'self'; object-src 'none'; frame-ancestors 'none'; "
     "form-action 'self'; base-uri 'none'"
-)
-# FastAPI's interactive API docs load Swagger UI / ReDoc from a CDN with an inline start-up
-# script: those two developer pages get a policy that allows exactly that, nothing else does.
-DOCS_PATHS = frozenset({"/docs", "/docs/oauth2-redirect", "/redoc"})
-DOCS_CONTENT_SECURITY_POLICY = (
-    "default-src 'self'; script-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net; "
-    "style-src 'self' 'unsafe-inline' https://cdn.jsdelivr.net https://fonts.googleapis.com; "
-    "img-src 'self' data: https://fastapi.tiangolo.com https://cdn.redoc.ly; "
-    "font-src 'self' https://fonts.gstatic.com; worker-src 'self' blob:; "
-    "connect-src 'self'; object-src 'none'; frame-ancestors 'none'; form-action 'self'; "
-    "base-uri 'none'"
 )
 SECURITY_HEADERS = {
     "X-Content-Type-Options": "nosniff",
@@ -74,13 +79,21 @@ MULTIPART_ENVELOPE_BYTES = 64 * 1024
 # itself, naming the field, below this).
 LARGE_UPLOAD_PATHS = frozenset({"/verify", "/api/v1/certificates/verify"})
 
+NO_STORE = "no-store"
+STATIC_PREFIX = "/static/"
+
 SIGN_IN_PATHS = frozenset({"/api/v1/auth/tokens", "/api/v1/auth/session", "/sign-in"})
 SIGN_IN_FAILURES_PER_ADDRESS = 20
 SIGN_IN_WINDOW = 15 * 60.0  # seconds
+SIGN_IN_ADDRESS_BACKOFF = 10.0  # seconds between attempts once an address is over the limit
+REDUCTIONS_PATH = "/api/v1/reductions"
+REDUCTIONS_PER_ADDRESS = 30
+REDUCTIONS_WINDOW = 60.0  # seconds
 SIGN_IN_REFUSED = frozenset({401, 429})
 # Memory bound: the least recently failing addresses are forgotten beyond this many.
 MAX_TRACKED_ADDRESSES = 10_000
 
+DATABASE_RETRY_SECONDS = 5
 HIDDEN = "[hidden]"
 # The smallest integer column of both databases (PostgreSQL INTEGER, the ids) holds this much.
 LARGEST_WHOLE_NUMBER = 2**31 - 1
@@ -107,9 +120,12 @@ class RequestBodyTooLarge(StarletteHTTPException):
         self.limit = limit
 
 
-def body_limit(path: str) -> int:
-    """The most bytes a request body to `path` may carry."""
+def body_limit(path: str, *, anonymous: bool = False) -> int:
+    """The most bytes a request body to `path` may carry (`anonymous`: sent without a token
+    or session cookie)."""
     settings = get_settings()
+    if anonymous and path == REDUCTIONS_PATH:
+        return min(settings.max_body_bytes, settings.anonymous_reduction_max_bytes)
     if path in LARGE_UPLOAD_PATHS:
         return max(
             settings.max_body_bytes, settings.verify_upload_max_bytes + MULTIPART_ENVELOPE_BYTES
@@ -127,18 +143,24 @@ def _content_length(scope: Scope) -> int | None:
 # --- sign-in limiting -------------------------------------------------------------------------
 
 
-class SignInLimiter:
-    """Refused sign-ins per client address in a sliding window (thread-safe; one process)."""
+class AddressLimiter:
+    """Events per client address in a sliding window (thread-safe; one process).
+
+    Below `limit` events in `window` an address waits for nothing. At the limit it waits
+    until the oldest event ages out or, with `backoff`, only `backoff` seconds after its
+    latest event (a slow-down rather than a stop)."""
 
     def __init__(
         self,
         limit: int = SIGN_IN_FAILURES_PER_ADDRESS,
         window: float = SIGN_IN_WINDOW,
         clock: Callable[[], float] = time.monotonic,
+        backoff: float | None = SIGN_IN_ADDRESS_BACKOFF,
     ) -> None:
         self.limit = limit
         self.window = window
         self.clock = clock
+        self.backoff = backoff
         self._failures: OrderedDict[str, deque[float]] = OrderedDict()
         self._lock = threading.Lock()
 
@@ -160,9 +182,12 @@ class SignInLimiter:
             times = self._recent(address, now)
             if times is None or len(times) < self.limit:
                 return None
+            if self.backoff is not None:
+                wait = times[-1] + self.backoff - now
+                return max(1, math.ceil(wait)) if wait > 0 else None
             return max(1, math.ceil(times[0] + self.window - now))
 
-    def record_failure(self, address: str) -> None:
+    def record(self, address: str) -> None:
         with self._lock:
             now = self.clock()
             times = self._recent(address, now) or deque()
@@ -181,10 +206,49 @@ def _client_address(scope: Scope) -> str:
 # --- the middleware ---------------------------------------------------------------------------
 
 
+def _has_credentials(scope: Scope) -> bool:
+    """Whether the request carries a bearer token or a session cookie (not yet checked)."""
+    headers = Headers(scope=scope)
+    return "authorization" in headers or SESSION_COOKIE in cookie_parser(headers.get("cookie", ""))
+
+
+def _limit_key(scope: Scope) -> str:
+    """What refused sign-ins are counted against here: the user of a genuine device cookie
+    (checked by its signature; each user one bucket, however many cookies they collect), else
+    the client address."""
+    cookies = cookie_parser(Headers(scope=scope).get("cookie", ""))
+    device = read_device_cookie(cookies.get(DEVICE_COOKIE))
+    return f"device-user:{device[0]}" if device else _client_address(scope)
+
+
+def _own_origin(scope: Scope) -> set[str]:
+    headers = Headers(scope=scope)
+    scheme = scope.get("scheme", "http")
+    origins = {f"{scheme}://{headers.get('host', '')}".lower()}
+    public = urlsplit(get_settings().public_base_url)
+    origins.add(f"{public.scheme}://{public.netloc}".lower())
+    return origins
+
+
+def cross_site(scope: Scope) -> bool:
+    """Whether a browser sent this request from another site: its Origin (or, without one,
+    its Referer) names a different scheme, host or port. Requests with neither (scripts) are
+    not cross-site."""
+    headers = Headers(scope=scope)
+    origin = headers.get("origin")
+    if origin is None:
+        referer = headers.get("referer")
+        if not referer:
+            return False
+        parts = urlsplit(referer)
+        origin = f"{parts.scheme}://{parts.netloc}"
+    return origin.strip().lower() not in _own_origin(scope)
+
+
 class SecurityMiddleware:
     """Headers on every response, the body limit, and sign-in limiting per address."""
 
-    def __init__(self, app: ASGIApp, fastapi_app: FastAPI, limiter: SignInLimiter) -> None:
+    def __init__(self, app: ASGIApp, fastapi_app: FastAPI, limiter: AddressLimiter) -> None:
         self.app = app
         self.fastapi_app = fastapi_app
         self.limiter = limiter
@@ -208,8 +272,15 @@ class SecurityMiddleware:
             await send(message)
 
         sign_in = method == "POST" and path in SIGN_IN_PATHS
-        address = _client_address(scope)
-        if sign_in and (wait := self.limiter.wait_seconds(address)) is not None:
+        if sign_in and cross_site(scope):
+            refusal = PermissionDenied(
+                "sign-in refused: the form was sent from another site; open this service's own "
+                "sign-in page and sign in there"
+            )
+            await self._answer(scope, receive, send_with_headers, refusal)
+            return
+        key = _limit_key(scope)
+        if sign_in and (wait := self.limiter.wait_seconds(key)) is not None:
             exc = TooManyAttempts(
                 f"too many refused sign-ins from your address: try again in {wait} s",
                 detail={"retry_after_seconds": wait},
@@ -217,7 +288,7 @@ class SecurityMiddleware:
             await self._answer(scope, receive, send_with_headers, exc)
             return
 
-        limit = body_limit(path)
+        limit = body_limit(path, anonymous=not _has_credentials(scope))
         length = _content_length(scope) if method in BODY_METHODS else None
         if length is not None and length > limit:
             await self._answer(scope, receive, send_with_headers, RequestBodyTooLarge(limit))
@@ -242,7 +313,7 @@ class SecurityMiddleware:
                 raise
             await self._answer(scope, receive, send_with_headers, exc)
         if sign_in and status_code in SIGN_IN_REFUSED:
-            self.limiter.record_failure(address)
+            self.limiter.record(key)
 
     async def _answer(self, scope: Scope, receive: Receive, send: Send, exc: Exception) -> None:
         """Render `exc` with the app's own exception handlers, as if a route had raised it."""
@@ -252,8 +323,9 @@ class SecurityMiddleware:
 
 
 def _add_security_headers(headers: MutableHeaders, path: str, *, https: bool) -> None:
-    policy = DOCS_CONTENT_SECURITY_POLICY if path in DOCS_PATHS else CONTENT_SECURITY_POLICY
-    headers.setdefault("Content-Security-Policy", policy)
+    headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
+    if not path.startswith(STATIC_PREFIX):
+        headers.setdefault("Cache-Control", NO_STORE)
     for name, value in SECURITY_HEADERS.items():
         headers.setdefault(name, value)
     if https:
@@ -366,8 +438,9 @@ def unstorable_kind(exc: BaseException) -> str | None:
     # PostgreSQL SQLSTATE 22003 numeric_value_out_of_range (psycopg's NumericValueOutOfRange).
     if getattr(original, "sqlstate", "") == "22003":
         return "out_of_range"
-    # psycopg refuses NUL in text before sending it ("cannot contain NUL (0x00) bytes").
-    if "NUL (0x00)" in str(original):
+    # psycopg refuses NUL in text before sending it ("cannot contain NUL (0x00) bytes");
+    # PostgreSQL refuses \u0000 in JSONB (SQLSTATE 22P05 untranslatable_character).
+    if "NUL (0x00)" in str(original) or getattr(original, "sqlstate", "") == "22P05":
         return "nul_character"
     return None
 
@@ -398,9 +471,9 @@ def install_security(app: FastAPI) -> None:
             )
         return await _call(_lookup(app, StarletteHTTPException), request, exc)
 
-    async def too_many(request: Request, exc: Exception) -> Response:
-        assert isinstance(exc, TooManyAttempts)
-        response = await _call(_lookup(app, ServiceError, skip=too_many), request, exc)
+    async def with_retry_after(request: Request, exc: Exception) -> Response:
+        assert isinstance(exc, TooManyAttempts | Unavailable)
+        response = await _call(_lookup(app, ServiceError, skip=with_retry_after), request, exc)
         wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
         if isinstance(wait, int | float) and math.isfinite(wait) and wait > 0:
             response.headers["Retry-After"] = str(math.ceil(wait))
@@ -419,5 +492,41 @@ def install_security(app: FastAPI) -> None:
     app.add_exception_handler(OverflowError, unstorable)
     app.add_exception_handler(sa.exc.DataError, unstorable)
     app.add_exception_handler(RequestBodyTooLarge, too_large)
-    app.add_exception_handler(TooManyAttempts, too_many)
-    app.add_middleware(SecurityMiddleware, fastapi_app=app, limiter=SignInLimiter())
+    app.add_exception_handler(TooManyAttempts, with_retry_after)
+    app.add_exception_handler(Unavailable, with_retry_after)
+
+    async def database_unavailable(request: Request, exc: Exception) -> Response:
+        # A dropped connection, a database that is down or restarting, a pool or lock that
+        # stayed busy: nothing the caller did wrong, and worth trying again shortly.
+        LOG.warning("database unavailable for %s %s: %r", request.method, request.url.path, exc)
+        unavailable = Unavailable(
+            "the database is not answering just now; nothing was changed, try again in "
+            f"{DATABASE_RETRY_SECONDS} s",
+            detail={"retry_after_seconds": DATABASE_RETRY_SECONDS},
+        )
+        return await with_retry_after(request, unavailable)
+
+    for unreachable in (sa.exc.OperationalError, sa.exc.InterfaceError, sa.exc.TimeoutError):
+        app.add_exception_handler(unreachable, database_unavailable)
+    app.state.reduction_limiter = AddressLimiter(
+        limit=REDUCTIONS_PER_ADDRESS, window=REDUCTIONS_WINDOW, backoff=None
+    )
+    app.add_middleware(SecurityMiddleware, fastapi_app=app, limiter=AddressLimiter())
+
+
+def limit_anonymous_reductions(request: Request, user: OptionalUser) -> None:
+    """A route dependency: anonymous callers get REDUCTIONS_PER_ADDRESS calls per
+    REDUCTIONS_WINDOW seconds per address (429 with Retry-After beyond); signed-in ones any."""
+    if user is not None:
+        return
+    limiter: AddressLimiter = request.app.state.reduction_limiter
+    address = _client_address(request.scope)
+    wait = limiter.wait_seconds(address)
+    if wait is not None:
+        raise TooManyAttempts(
+            f"too many reductions from your address without signing in (at most "
+            f"{REDUCTIONS_PER_ADDRESS} a minute): try again in {wait} s, or sign in "
+            "(a bearer token or a session) for no limit",
+            detail={"retry_after_seconds": wait},
+        )
+    limiter.record(address)

@@ -73,3 +73,17 @@ class AccessToken(SQLModel, table=True):
     expires_at: datetime | None = timestamp_field()
     last_used_at: datetime | None = timestamp_field()
     revoked_at: datetime | None = timestamp_field()
+
+
+class SignInThrottle(SQLModel, table=True):
+    """Recent failed sign-ins of one subject: an email address (whether or not it has an
+    account, so that known and unknown addresses are treated alike) or one trusted device of
+    an account. `subject` is an HMAC of it, never the address itself."""
+
+    __tablename__ = "sign_in_throttle"
+    __table_args__ = (sa.CheckConstraint("failures >= 0", name="failures_non_negative"),)
+
+    subject: str = Field(primary_key=True, max_length=64)
+    failures: int = 0
+    last_failure_at: datetime = timestamp_field(nullable=False)
+    wait_until: datetime | None = timestamp_field()

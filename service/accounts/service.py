@@ -11,16 +11,15 @@ from sqlalchemy import func
 from sqlmodel import Session, col, select
 
 from service.accounts.models import AccessToken, Organisation, User
+from service.accounts.password_policy import password_problem
 from service.accounts.passwords import hash_password
+from service.accounts.throttle import clear_failures
 from service.accounts.tokens import revoke
 from service.audit.service import apply_changes, record_change, record_created
 from service.common import DisplayUnits, OrganisationKind, Role
 from service.db import utcnow
 from service.errors import Conflict, InvalidInput, NotFound, StaleVersion
 
-MIN_PASSWORD_LENGTH = 10
-# Argon2 takes any length; the cap keeps a megabyte "password" from costing CPU.
-MAX_PASSWORD_LENGTH = 1024
 # Deliberately loose: one @, no spaces, a dot in the domain. Mail delivery is the real test.
 _EMAIL = re.compile(r"^[^@\s]+@[^@\s]+\.[^@\s]+$")
 
@@ -46,20 +45,13 @@ def check_email(email: str, field: str = "email") -> str:
     return normalised
 
 
-def check_password_strength(password: str, field: str = "password") -> None:
-    if len(password) > MAX_PASSWORD_LENGTH:
-        raise field_error(field, f"at most {MAX_PASSWORD_LENGTH} characters are accepted")
-    if len(password) < MIN_PASSWORD_LENGTH:
-        raise InvalidInput(
-            f"{field}: at least {MIN_PASSWORD_LENGTH} characters are needed",
-            detail=[
-                {
-                    "loc": ["body", field],
-                    "msg": f"at least {MIN_PASSWORD_LENGTH} characters are needed",
-                    "type": "value_error",
-                }
-            ],
-        )
+def check_password_strength(
+    password: str, field: str = "password", *, email: str = "", full_name: str = ""
+) -> None:
+    """Refuse a new password that password_policy refuses, naming `field`."""
+    problem = password_problem(password, email=email, full_name=full_name)
+    if problem is not None:
+        raise field_error(field, f"the password {problem}")
 
 
 def get_or_create_organisation(session: Session, name: str, kind: OrganisationKind) -> Organisation:
@@ -81,7 +73,7 @@ def create_user(
     password: str,
 ) -> User:
     email = normalise_email(email)
-    check_password_strength(password)
+    check_password_strength(password, email=email, full_name=full_name)
     if (role == Role.CLIENT) != (organisation.kind == OrganisationKind.CLIENT):
         raise InvalidInput(
             f"role: {role.value} does not fit a {organisation.kind} organisation; "
@@ -251,7 +243,8 @@ def update_user(
 
 
 def unlock_user(session: Session, user: User, *, actor: User) -> User:
-    """Clear the failed sign-in count and any back-off or lock-out."""
+    """Clear the failed sign-in counts and any back-off or lock-out."""
+    clear_failures(session, user.email)
     apply_changes(session, user, {"failed_sign_ins": 0, "locked_until": None}, actor_id=actor.id)
     return user
 

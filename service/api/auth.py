@@ -3,8 +3,6 @@ user, password change and the user's own tokens."""
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager
 from datetime import datetime
 from typing import Annotated, Literal
 
@@ -19,7 +17,6 @@ from service.accounts.models import AccessToken, Organisation, User
 from service.accounts.tokens import find_live_token
 from service.api.users import UserRead
 from service.common import TokenKind
-from service.config import get_settings
 from service.deps import (
     CSRF_HEADER,
     SESSION_COOKIE,
@@ -27,9 +24,11 @@ from service.deps import (
     CurrentUser,
     SessionDep,
     cookie_serializer,
-    sign_session_cookie,
+    device_of,
+    set_device_cookie,
+    set_session_cookie,
 )
-from service.errors import NotAuthenticated, PermissionDenied, TooManyAttempts
+from service.errors import NotAuthenticated
 
 router = APIRouter(prefix="/api/v1/auth", tags=["auth"])
 
@@ -106,17 +105,6 @@ def _signed_in(auth: Authentication) -> tuple[User, AccessToken]:
 SignedIn = Annotated[tuple[User, AccessToken], Depends(_signed_in)]
 
 
-@contextmanager
-def _keeping_failure_count(session: Session) -> Iterator[None]:
-    """A refused password must still count towards the lock-out, but the error would roll
-    the request's transaction back: commit the count first."""
-    try:
-        yield
-    except (NotAuthenticated, PermissionDenied, TooManyAttempts):
-        session.commit()
-        raise
-
-
 def _cookie_session(request: Request, session: Session) -> AccessToken | None:
     cookie = request.cookies.get(SESSION_COOKIE)
     if not cookie:
@@ -142,12 +130,17 @@ def _token_read(token: AccessToken, current: AccessToken | None) -> TokenRead:
     description="Wrong email or password answers 401 with one message for both; repeated "
     "failures earn a wait, then a 15-minute lock-out (429 saying until when).",
 )
-def create_token(body: TokenRequest, session: SessionDep) -> IssuedToken:
-    with _keeping_failure_count(session):
-        user = signin.check_credentials(session, email=body.email, password=body.password)
-    raw, token = signin.issue_api_token(
-        session, user, label=body.label.strip(), expires_in_days=body.expires_in_days
+def create_token(body: TokenRequest, request: Request, response: Response) -> IssuedToken:
+    def issue(session: Session, user: User) -> tuple[str, AccessToken, str]:
+        raw, token = signin.issue_api_token(
+            session, user, label=body.label.strip(), expires_in_days=body.expires_in_days
+        )
+        return raw, token, signin.device_cookie(user)
+
+    raw, token, device = signin.sign_in(
+        email=body.email, password=body.password, device=device_of(request), then=issue
     )
+    set_device_cookie(response, request, device)
     return IssuedToken(**_token_read(token, None).model_dump(), token=raw)
 
 
@@ -175,26 +168,25 @@ def revoke_token(token_id: int, user: CurrentUser, session: SessionDep) -> Respo
     "cookie-authenticated writes must send. Each sign-in replaces any earlier session of "
     "this browser with a fresh one.",
 )
-def start_session(
-    body: Credentials, request: Request, response: Response, session: SessionDep
-) -> SessionStarted:
-    with _keeping_failure_count(session):
-        user = signin.check_credentials(session, email=body.email, password=body.password)
-    raw, token = signin.start_session(session, user, replacing=_cookie_session(request, session))
-    assert token.expires_at is not None
-    response.set_cookie(
-        SESSION_COOKIE,
-        sign_session_cookie(raw),
-        max_age=get_settings().session_hours * 3600,
-        httponly=True,
-        samesite="lax",
-        secure=request.url.scheme == "https",
+def start_session(body: Credentials, request: Request, response: Response) -> SessionStarted:
+    def start(session: Session, user: User) -> tuple[str, SessionStarted, str]:
+        raw, token = signin.start_session(
+            session, user, replacing=_cookie_session(request, session)
+        )
+        assert token.expires_at is not None
+        started = SessionStarted(
+            csrf_token=token.csrf_token,
+            expires_at=token.expires_at,
+            user=UserRead.model_validate(user),
+        )
+        return raw, started, signin.device_cookie(user)
+
+    raw, started, device = signin.sign_in(
+        email=body.email, password=body.password, device=device_of(request), then=start
     )
-    return SessionStarted(
-        csrf_token=token.csrf_token,
-        expires_at=token.expires_at,
-        user=UserRead.model_validate(user),
-    )
+    set_session_cookie(response, request, raw)
+    set_device_cookie(response, request, device)
+    return started
 
 
 @router.post(
@@ -234,12 +226,11 @@ def read_me(auth: SignedIn, session: SessionDep) -> Me:
 )
 def change_password(body: PasswordChange, auth: SignedIn, session: SessionDep) -> PasswordChanged:
     user, token = auth
-    with _keeping_failure_count(session):
-        revoked = signin.change_password(
-            session,
-            user,
-            current_password=body.current_password,
-            new_password=body.new_password,
-            keep=token,
-        )
+    revoked = signin.change_password(
+        session,
+        user,
+        current_password=body.current_password,
+        new_password=body.new_password,
+        keep=token,
+    )
     return PasswordChanged(revoked_tokens=revoked)

@@ -11,7 +11,7 @@ from pydantic import BaseModel
 
 from service.config import get_settings
 from service.deps import LabStaff, Reception, SessionDep
-from service.exchange.files import read_limited, read_table
+from service.exchange.files import Table, read_upload
 from service.exchange.imports import (
     check_schedule,
     parse_readings,
@@ -37,9 +37,10 @@ class SchedulePreviewRead(BaseModel):
     errors: list[dict[str, Any]]
 
 
-async def _table(file: UploadFile) -> Any:
-    data = await read_limited(file, get_settings().max_body_bytes, "file")
-    return read_table(data, file.filename or "", field="file")
+async def _table(file: UploadFile) -> Table:
+    return await read_upload(
+        file, file.filename or "", limit=get_settings().max_body_bytes, field="file"
+    )
 
 
 @router.post("/readings/preview", response_model=ReadingsPreview)

@@ -6,7 +6,7 @@ import math
 from collections.abc import Callable, Coroutine
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Body, Request, Response
+from fastapi import APIRouter, Body, Depends, Request, Response
 from fastapi.encoders import jsonable_encoder
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
@@ -14,6 +14,7 @@ from fastapi.routing import APIRoute
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.engine import EngineInputError, parse_request, reduce, result_to_dict
+from service.security import limit_anonymous_reductions
 
 
 class _RefusalSafeRoute(APIRoute):
@@ -397,6 +398,8 @@ def error_detail(exc: EngineInputError) -> list[dict[str, Any]]:
 
 @router.post(
     "",
+    # Open to anonymous callers, within a rate and a body size (service/security.py).
+    dependencies=[Depends(limit_anonymous_reductions)],
     response_model=ReductionResponse,
     summary="Reduce one test's entries (stores nothing)",
     responses={422: {"model": ErrorBody, "description": "A field refused, named with its value"}},

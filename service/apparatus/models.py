@@ -8,6 +8,7 @@ import sqlalchemy as sa
 from sqlmodel import Field, SQLModel
 
 from service.common import ApparatusKind, created_at_field, one_of, positive, version_field
+from service.text import identifier_key
 
 
 class Apparatus(SQLModel, table=True):
@@ -29,6 +30,8 @@ class Apparatus(SQLModel, table=True):
 
     id: int | None = Field(default=None, primary_key=True)
     identifier: str = Field(max_length=40, unique=True)
+    # identifier_key(identifier), kept by the events below: what duplicates are found by.
+    identifier_key: str = Field(default="", max_length=160, unique=True)
     kind: str = Field(max_length=30)
     description: str = Field(default="", max_length=300)
     specimen_area_m2: float | None = None
@@ -49,3 +52,9 @@ class Apparatus(SQLModel, table=True):
     is_active: bool = True
     created_at: datetime = created_at_field()
     version: int = version_field()
+
+
+@sa.event.listens_for(Apparatus, "before_insert")
+@sa.event.listens_for(Apparatus, "before_update")
+def _keep_identifier_key(_mapper: object, _connection: object, item: Apparatus) -> None:
+    item.identifier_key = identifier_key(item.identifier)

@@ -33,6 +33,7 @@ from service.errors import Conflict, InvalidInput, NotFound
 from service.lab_tests.models import TestApparatus
 from service.projects.service import invalid, problems_from, require_version, typed_quantity
 from service.queue import paginate
+from service.text import Identifier, identifier_key
 
 # The quantity a reading resolution is stated in, per kind of item. A permeameter's is the
 # smallest head difference read on its standpipe or manometer scale.
@@ -72,7 +73,7 @@ _TYPED = "with its unit, e.g. "
 
 
 class ApparatusCreate(_Strict):
-    identifier: str = Field(min_length=1, max_length=40, description="unique, e.g. 'BAL-01'")
+    identifier: Identifier = Field(min_length=1, max_length=40, description="unique, e.g. 'BAL-01'")
     kind: ApparatusKind
     description: str = Field(default="", max_length=300)
     specimen_area: str | None = Field(
@@ -103,7 +104,7 @@ class ApparatusCreate(_Strict):
 
 class ApparatusUpdate(_Strict):
     version: int = Field(ge=1, description="the version you read; a stale one answers 409")
-    identifier: str | None = Field(default=None, min_length=1, max_length=40)
+    identifier: Identifier | None = Field(default=None, min_length=1, max_length=40)
     description: str | None = Field(default=None, max_length=300)
     specimen_area: str | None = Field(default=None, max_length=40, description="'' removes it")
     port_spacing: str | None = Field(default=None, max_length=40)
@@ -219,7 +220,8 @@ def _typed_columns(
 def _refuse_duplicate_identifier(
     session: Session, identifier: str, apparatus_id: int | None = None
 ) -> None:
-    query = select(Apparatus.id).where(func.lower(Apparatus.identifier) == identifier.lower())
+    # Compared on the key computed in Python: SQLite's lower() folds ASCII letters only.
+    query = select(Apparatus.id).where(Apparatus.identifier_key == identifier_key(identifier))
     if apparatus_id is not None:
         query = query.where(Apparatus.id != apparatus_id)
     if session.exec(query).first() is not None:

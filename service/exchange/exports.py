@@ -35,6 +35,7 @@ from service.lab_tests.models import (
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
+from service.text import CONTROL_CHARACTERS, spreadsheet_text
 
 FORMAT_NAME = "seepline-project-export"
 FORMAT_VERSION = 1
@@ -250,7 +251,13 @@ def _csv_value(value: Any) -> str:
         return ""
     if isinstance(value, float):
         return repr(value)  # shortest text that reads back to the same float
+    if isinstance(value, str):
+        return spreadsheet_text(value)
     return str(value)
+
+
+def _xlsx_value(value: Any) -> Any:
+    return spreadsheet_text(value) if isinstance(value, str) else value
 
 
 def to_csv(rows: Sequence[dict[str, Any]]) -> str:
@@ -274,7 +281,7 @@ def to_xlsx(rows: Sequence[dict[str, Any]], *, title: str) -> bytes:
     for cell in sheet[1]:
         cell.font = Font(bold=True)
     for row in rows:
-        sheet.append([row[column.key] for column in EXPORT_COLUMNS])
+        sheet.append([_xlsx_value(row[column.key]) for column in EXPORT_COLUMNS])
     sheet.freeze_panes = "A2"
     for index, column in enumerate(EXPORT_COLUMNS, start=1):
         letter = sheet.cell(row=1, column=index).column_letter
@@ -286,7 +293,7 @@ def to_xlsx(rows: Sequence[dict[str, Any]], *, title: str) -> bytes:
     notes.append(["column", "unit", "meaning"])
     for column in EXPORT_COLUMNS:
         notes.append([column.header, column.unit, column.description])
-    workbook.properties.title = title
+    workbook.properties.title = CONTROL_CHARACTERS.sub("\ufffd", title)
     workbook.properties.creator = "Seepline"
     out = io.BytesIO()
     workbook.save(out)

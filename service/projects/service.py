@@ -20,6 +20,7 @@ from service.engine.units import CONDUCTIVITY, LENGTH, Kind, parse_quantity
 from service.errors import Conflict, InvalidInput, NotFound, StaleVersion
 from service.projects.models import Location, Project
 from service.queue import paginate
+from service.text import Identifier
 
 # --- shared helpers ------------------------------------------------------------------------
 
@@ -124,7 +125,7 @@ class ProjectRead(BaseModel):
 
 
 class LocationCreate(_Strict):
-    name: str = Field(min_length=1, max_length=60, description="e.g. 'BH-03' or 'TP-2'")
+    name: Identifier = Field(min_length=1, max_length=60, description="e.g. 'BH-03' or 'TP-2'")
     kind: LocationKind
     easting_m: float | None = Field(default=None, allow_inf_nan=False)
     northing_m: float | None = Field(default=None, allow_inf_nan=False)
@@ -224,11 +225,13 @@ def list_projects(
     if client_id is not None:
         query = query.where(Project.client_id == client_id)
     if search:
-        pattern = f"%{search.strip().lower()}%"
+        # The text is searched for as typed: % and _ are not wildcards here.
+        escaped = search.strip().lower().replace("\\", "\\\\").replace("%", "\\%")
+        pattern = "%" + escaped.replace("_", "\\_") + "%"
         query = query.where(
-            col(Project.number).ilike(pattern)
-            | col(Project.name).ilike(pattern)
-            | col(Project.site).ilike(pattern)
+            col(Project.number).ilike(pattern, escape="\\")
+            | col(Project.name).ilike(pattern, escape="\\")
+            | col(Project.site).ilike(pattern, escape="\\")
         )
     query = query.order_by(col(Project.created_at).desc(), col(Project.id).desc())
     return paginate(session, query, limit=limit, offset=offset)

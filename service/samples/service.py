@@ -29,6 +29,7 @@ from service.projects.service import get_project, invalid, require_version, type
 from service.queue import OPEN_STATES, Page, paginate
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
+from service.text import Identifier
 
 MAX_BATCH = 500
 # Received times may run a little ahead of the server clock (a tablet's clock), not more.
@@ -44,9 +45,11 @@ class _Strict(BaseModel):
 class SampleIn(_Strict):
     """One row of a reception batch: what is written on the tube or bag and what was seen."""
 
-    client_sample_id: str = Field(default="", max_length=60, description="the client's own ID")
+    client_sample_id: Identifier = Field(
+        default="", max_length=60, description="the client's own ID"
+    )
     location_id: int | None = Field(default=None, description="a location of the project")
-    location: str | None = Field(
+    location: Identifier | None = Field(
         default=None, max_length=60, description="or the location's name, e.g. 'BH-03'"
     )
     depth_top: str | None = Field(
@@ -77,7 +80,7 @@ class SampleUpdate(_Strict):
     """Corrections to a sample's record; storage moves are custody events, not edits."""
 
     version: int = Field(ge=1, description="the version you read; a stale one answers 409")
-    client_sample_id: str | None = Field(default=None, max_length=60)
+    client_sample_id: Identifier | None = Field(default=None, max_length=60)
     location_id: int | None = None
     depth_top: str | None = Field(default=None, max_length=40, description="'' removes it")
     depth_bottom: str | None = Field(default=None, max_length=40, description="'' removes it")

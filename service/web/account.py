@@ -193,11 +193,9 @@ def change_password(
                 keep=current,
             )
         except PermissionDenied:
-            session.commit()  # the failed attempt counts towards the lock-out
             errors["current_password"] = _error("this is not your current password")
             status = 403
         except TooManyAttempts as exc:
-            session.commit()
             alert = exc.message[:1].upper() + exc.message[1:] + "."
             status = 429
         except InvalidInput as exc:

@@ -38,6 +38,7 @@ TITLES = {
     413: "Too large",
     422: "Some entries need attention",
     429: "Too many attempts",
+    503: "Briefly unavailable",
 }
 
 

@@ -17,7 +17,6 @@ from service.accounts.models import AccessToken, User
 from service.accounts.service import revoke_token
 from service.accounts.tokens import find_live_token
 from service.common import Role, TestState, TokenKind
-from service.config import get_settings
 from service.deps import (
     SESSION_COOKIE,
     Authentication,
@@ -25,7 +24,9 @@ from service.deps import (
     OptionalUser,
     SessionDep,
     cookie_serializer,
-    sign_session_cookie,
+    device_of,
+    set_device_cookie,
+    set_session_cookie,
 )
 from service.errors import NotAuthenticated, TooManyAttempts
 from service.lab_tests.models import PermeabilityTest
@@ -134,56 +135,36 @@ def sign_in_form(
 @router.post("/sign-in")
 def sign_in(
     request: Request,
-    session: SessionDep,
     email: Annotated[str, Form(max_length=254)] = "",
     password: Annotated[str, Form(max_length=1024)] = "",
     next_url: Annotated[str, Form(alias="next")] = "/",
 ) -> Response:
-    """Check the password (with the accounts back-off and lock-out), then set the cookie."""
+    """Check the password (with the limits of accounts.signin), then set the cookies."""
     target = safe_next(next_url)
-    if not email.strip() or not password:
-        return _sign_in_page(
-            request,
-            email=email,
-            next_url=target,
-            error="Enter both your email address and your password.",
-            status=422,
-        )
-    try:
-        user = signin.check_credentials(session, email=email, password=password)
-    except NotAuthenticated:
-        # The failure count is on the user row: keep it although the sign-in is refused.
-        session.commit()
-        return _sign_in_page(
-            request,
-            email=email,
-            next_url=target,
-            error="That email address and password do not match an active account.",
-            status=401,
-        )
-    except TooManyAttempts as exc:
-        session.commit()
-        return _sign_in_page(
-            request,
-            email=email,
-            next_url=target,
-            error=_wait_message(exc),
-            status=429,
-        )
-    raw, _token = signin.start_session(session, user, replacing=_browser_session(request, session))
-    # Commit before answering: the request's session dependency commits only after the 303
-    # is sent, and the browser's next request could arrive before the new session exists.
-    session.commit()
-    response = redirect(request, target)
-    response.set_cookie(
-        SESSION_COOKIE,
-        sign_session_cookie(raw),
-        max_age=get_settings().session_hours * 3600,
-        httponly=True,
-        samesite="lax",
-        secure=request.url.scheme == "https",
-    )
-    return response
+    refusal = ("Enter both your email address and your password.", 422)
+    if email.strip() and password:
+
+        def start(session: Session, user: User) -> tuple[str, str]:
+            raw, _token = signin.start_session(
+                session, user, replacing=_browser_session(request, session)
+            )
+            return raw, signin.device_cookie(user)
+
+        try:
+            raw, device = signin.sign_in(
+                email=email, password=password, device=device_of(request), then=start
+            )
+        except NotAuthenticated:
+            refusal = ("That email address and password do not match an active account.", 401)
+        except TooManyAttempts as exc:
+            refusal = (_wait_message(exc), 429)
+        else:
+            response = redirect(request, target)
+            set_session_cookie(response, request, raw)
+            set_device_cookie(response, request, device)
+            return response
+    message, status = refusal
+    return _sign_in_page(request, email=email, next_url=target, error=message, status=status)
 
 
 @router.post("/sign-out")

@@ -27,7 +27,7 @@ from service.common import Priority, SampleType
 from service.config import get_settings
 from service.deps import Reception, SessionDep
 from service.errors import Conflict, InvalidInput
-from service.exchange.files import FileTooLarge, Table, read_limited, read_table
+from service.exchange.files import FileTooLarge, Table, read_table, read_upload
 from service.exchange.imports import SCHEDULE_COLUMNS, SchedulePreview, check_schedule
 from service.projects.models import Location, Project
 from service.projects.service import get_project, list_locations, list_projects
@@ -557,8 +557,13 @@ async def reception_submit(request: Request, user: Reception, session: SessionDe
             and form.project_id is not None
         ):
             try:
-                data = await read_limited(upload, get_settings().max_body_bytes, "schedule_file")
-                form.schedule = table_as_csv(read_table(data, upload.filename, field="file"))
+                table = await read_upload(
+                    upload,
+                    upload.filename,
+                    limit=get_settings().max_body_bytes,
+                    field="schedule_file",
+                )
+                form.schedule = table_as_csv(table)
             except (InvalidInput, FileTooLarge) as exc:
                 detail = exc.detail if isinstance(exc.detail, list) else []
                 file_error = "; ".join(str(i.get("msg", "")) for i in detail) or exc.message

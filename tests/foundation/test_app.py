@@ -6,10 +6,14 @@ from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
+from sqlmodel import Session
 
 from service import db
+from service.common import Role
 from service.config import get_settings
 from service.errors import DatabaseNotMigrated
+from tests.auth_helpers import bearer
+from tests.factories import make_user
 
 
 def test_healthz_reports_database_and_revision(client: TestClient) -> None:
@@ -21,10 +25,19 @@ def test_healthz_reports_database_and_revision(client: TestClient) -> None:
     assert body["migration_revision"] == db.head_revision()
 
 
-def test_openapi_is_served(client: TestClient) -> None:
-    response = client.get("/openapi.json")
+def test_openapi_is_served_to_signed_in_users_only(client: TestClient, session: Session) -> None:
+    # The attack run found /docs, /redoc and /openapi.json open to anyone in production, and
+    # /docs loading its scripts from a CDN. No interactive docs; the document needs a sign-in.
+    anonymous = client.get("/openapi.json", follow_redirects=False)
+    assert anonymous.status_code in (303, 401)
+    assert "paths" not in anonymous.text
+    for path in ("/docs", "/redoc"):
+        assert client.get(path).status_code == 404
+    user = make_user(session, role=Role.CLIENT)
+    response = client.get("/openapi.json", headers=bearer(session, user))
     assert response.status_code == 200
     assert response.json()["info"]["title"] == "Seepline"
+    assert response.headers["cache-control"] == "no-store"
 
 
 def test_unmigrated_database_is_refused_with_the_command(tmp_path: Path) -> None:

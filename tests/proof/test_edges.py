@@ -10,11 +10,13 @@ import re
 from collections.abc import Iterator
 
 import pytest
+from fastapi import Request
 from fastapi.testclient import TestClient
 
+from service.accounts.signin import DEVICE_COOKIE
 from service.config import get_settings
 from service.deps import SESSION_COOKIE
-from service.security import SIGN_IN_FAILURES_PER_ADDRESS, SignInLimiter
+from service.security import SIGN_IN_ADDRESS_BACKOFF, SIGN_IN_FAILURES_PER_ADDRESS, AddressLimiter
 from tests.proof.conftest import PASSWORD, Proof
 
 # --- headers ------------------------------------------------------------------------------------
@@ -160,13 +162,18 @@ def test_an_account_is_locked_after_repeated_failures_with_retry_after(proof: Pr
     assert waiting.json()["context"]["retry_after_seconds"] == int(waiting.headers["retry-after"])
 
 
-def test_one_address_trying_many_accounts_is_slowed_down(proof: Proof) -> None:
+def _fail_from_one_address(proof: Proof, client: TestClient | None = None) -> None:
+    client = client or proof.client
     for n in range(SIGN_IN_FAILURES_PER_ADDRESS):
-        refused = proof.client.post(
+        refused = client.post(
             "/api/v1/auth/tokens", json={"email": f"nobody{n}@example.test", "password": "guess"}
         )
         assert refused.status_code == 401
-    # Even right credentials wait now: the address, not the account, is being limited.
+
+
+def test_one_address_trying_many_accounts_is_slowed_down_not_locked_out(proof: Proof) -> None:
+    _fail_from_one_address(proof)
+    # A browser that never signed in from here waits a short back-off: the address is slowed.
     for path, kwargs in (
         ("/api/v1/auth/tokens", {"json": _credentials(proof, "reviewer")}),
         ("/api/v1/auth/session", {"json": _credentials(proof, "reviewer")}),
@@ -174,23 +181,133 @@ def test_one_address_trying_many_accounts_is_slowed_down(proof: Proof) -> None:
     ):
         limited = proof.client.post(path, follow_redirects=False, **kwargs)
         assert limited.status_code == 429, path
-        assert int(limited.headers["retry-after"]) > 0
+        wait = int(limited.headers["retry-after"])
+        assert 0 < wait <= SIGN_IN_ADDRESS_BACKOFF
         assert "too many" in limited.text.lower()
     # Other routes are not limited.
     assert proof.client.get("/api/v1/auth/me", headers=proof.headers("reviewer")).status_code == 200
 
 
-def test_the_address_limit_forgets_failures_after_the_window() -> None:
+def test_colleagues_behind_one_address_still_sign_in(proof: Proof) -> None:
+    # The attack run: once an address had 20 failures, right passwords from it were refused
+    # too, so a lab behind one NAT address locked itself out. A colleague whose browser signed
+    # in before (a device cookie) is not limited by the address at all.
+    device_holder = proof.client.post("/api/v1/auth/session", json=_credentials(proof, "reviewer"))
+    assert device_holder.status_code == 200
+    assert proof.client.cookies.get(DEVICE_COOKIE)
+    from service.main import create_app
+
+    with TestClient(create_app()) as attacker:  # same address, no cookies
+        _fail_from_one_address(proof, attacker)
+        assert attacker.post("/api/v1/auth/tokens", json=_credentials(proof)).status_code == 429
+    again = proof.client.post("/sign-in", data=_credentials(proof, "reviewer"))
+    assert again.status_code == 200, again.text  # redirected home, signed in
+
+
+def test_a_forwarded_for_header_does_not_escape_the_address_limit(proof: Proof) -> None:
+    # docker/compose.yaml trusted X-Forwarded-For from anyone (FORWARDED_ALLOW_IPS=*), so each
+    # guess could claim a new address. Without a configured proxy the header is ignored.
+    for n in range(SIGN_IN_FAILURES_PER_ADDRESS):
+        proof.client.post(
+            "/api/v1/auth/tokens",
+            json={"email": f"nobody{n}@example.test", "password": "guess"},
+            headers={"X-Forwarded-For": f"198.51.100.{n}"},
+        )
+    spoofed = proof.client.post(
+        "/api/v1/auth/tokens",
+        json=_credentials(proof),
+        headers={"X-Forwarded-For": "203.0.113.99"},
+    )
+    assert spoofed.status_code == 429
+
+
+def test_forwarded_for_is_believed_only_from_the_named_proxy(
+    engine: object, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from service.main import create_app
+
+    seen: list[str] = []
+
+    def app_with(proxies: str) -> TestClient:
+        monkeypatch.setenv("FORWARDED_ALLOW_IPS", proxies)
+        get_settings.cache_clear()
+        app = create_app()
+
+        @app.get("/_peer")
+        def peer(request: Request) -> dict[str, str]:
+            seen.append(request.client.host if request.client else "")
+            return {}
+
+        return TestClient(app)
+
+    try:
+        with app_with("") as client:  # nobody named: the socket's peer
+            client.get("/_peer", headers={"X-Forwarded-For": "198.51.100.7"})
+        with app_with("testclient") as client:  # the test client plays the proxy
+            client.get("/_peer", headers={"X-Forwarded-For": "198.51.100.7"})
+    finally:
+        monkeypatch.delenv("FORWARDED_ALLOW_IPS")
+        get_settings.cache_clear()
+    assert seen == ["testclient", "198.51.100.7"]
+
+
+def test_the_compose_file_believes_only_its_own_gateway() -> None:
+    import yaml
+
+    from service.db import PROJECT_ROOT
+
+    compose = yaml.safe_load((PROJECT_ROOT / "docker" / "compose.yaml").read_text())
+    trusted = compose["x-app"]["environment"]["FORWARDED_ALLOW_IPS"]
+    gateway = compose["networks"]["default"]["ipam"]["config"][0]["gateway"]
+    assert "*" not in trusted
+    assert trusted == f"${{FORWARDED_ALLOW_IPS:-{gateway}}}"
+
+
+def test_production_refuses_to_believe_every_proxy(monkeypatch: pytest.MonkeyPatch) -> None:
+    from pydantic import ValidationError
+
+    from service.config import Settings
+
+    monkeypatch.setenv("ENVIRONMENT", "production")
+    monkeypatch.setenv("SECRET_KEY", "a-real-production-secret-value")
+    monkeypatch.setenv("FORWARDED_ALLOW_IPS", "*")
+    with pytest.raises(ValidationError, match="FORWARDED_ALLOW_IPS"):
+        Settings()
+
+
+def test_the_address_limit_slows_down_then_forgets_failures() -> None:
     now = [1000.0]
-    limiter = SignInLimiter(limit=3, window=60.0, clock=lambda: now[0])
+    limiter = AddressLimiter(limit=3, window=60.0, clock=lambda: now[0], backoff=10.0)
     for _ in range(3):
         assert limiter.wait_seconds("192.0.2.7") is None
-        limiter.record_failure("192.0.2.7")
+        limiter.record("192.0.2.7")
         now[0] += 10
-    assert limiter.wait_seconds("192.0.2.7") == 30  # the first failure ages out at 1060
+    # Over the limit the address waits 10 s after its latest failure, not the whole window.
+    assert limiter.wait_seconds("192.0.2.7") is None  # the latest was 10 s ago
+    limiter.record("192.0.2.7")
+    assert limiter.wait_seconds("192.0.2.7") == 10
     assert limiter.wait_seconds("192.0.2.8") is None  # another address is not affected
-    now[0] = 1061.0
+    now[0] = 1200.0
     assert limiter.wait_seconds("192.0.2.7") is None
+
+
+def test_a_sign_in_posted_from_another_site_is_refused(proof: Proof) -> None:
+    # Login CSRF (OWASP CSRF Prevention Cheat Sheet, "Login CSRF"): another site's form must
+    # not sign the browser in to an account of the attacker's choosing.
+    for headers in ({"Origin": "https://evil.example"}, {"Referer": "https://evil.example/x"}):
+        refused = proof.client.post(
+            "/sign-in", data=_credentials(proof), headers=headers, follow_redirects=False
+        )
+        assert refused.status_code == 403, headers
+        assert "another site" in refused.text
+        assert SESSION_COOKIE not in refused.headers.get("set-cookie", "")
+    own = proof.client.post(
+        "/sign-in",
+        data=_credentials(proof),
+        headers={"Origin": "http://testserver"},
+        follow_redirects=False,
+    )
+    assert own.status_code == 303
 
 
 # --- oversized bodies ---------------------------------------------------------------------------
@@ -347,13 +464,14 @@ def test_a_nul_character_in_text_is_refused_not_crashed(proof: Proof) -> None:
     sign_in = proof.client.post(
         "/api/v1/auth/tokens", json={"email": "a\u0000b@example.test", "password": "guess"}
     )
+    assert sign_in.status_code == 401, sign_in.text  # no such account, on either database
     location = proof.client.post(
         f"/api/v1/projects/{proof.world.project.id}/locations",
         json={"name": "BH-\u00001", "kind": "borehole"},
         headers=proof.headers("lab_manager"),
     )
-    # PostgreSQL cannot store U+0000 in text: a 422 saying so. SQLite can (no refusal needed).
-    for response in (sign_in, location):
-        assert response.status_code in (201, 401, 422), response.text
-        if response.status_code == 422:
-            assert "NUL character" in response.json()["detail"][0]["msg"]
+    # Refused on both databases (PostgreSQL could not store it; SQLite would store garbage).
+    assert location.status_code == 422, location.text
+    problem = location.json()["detail"][0]
+    assert problem["loc"][-1] == "name"
+    assert problem["msg"].startswith("contains the invisible control character U+0000")

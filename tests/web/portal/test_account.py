@@ -10,7 +10,7 @@ from fastapi.testclient import TestClient
 from sqlmodel import Session, select
 
 from service.accounts.models import AccessToken, User
-from service.accounts.signin import check_credentials
+from service.accounts.passwords import verify_password
 from service.common import Role
 from service.deps import CSRF_HEADER
 from tests.auth_helpers import bearer, sign_in_cookie
@@ -181,7 +181,7 @@ def test_a_short_new_password_is_refused_beside_it(
     )
     assert response.status_code == 422
     assert "at least 10 characters" in error_beside(response.text, "new_password")
-    check_credentials(session, email=user.email, password=PASSWORD)  # unchanged
+    assert _password_is(session, user, PASSWORD)  # unchanged
 
 
 def test_a_mismatched_repeat_is_refused_before_any_check(
@@ -244,7 +244,7 @@ def test_password_change_without_csrf_is_refused(
         },
     )
     assert response.status_code == 403
-    check_credentials(session, email=user.email, password=PASSWORD)
+    assert _password_is(session, user, PASSWORD)
 
 
 def test_changing_the_password_keeps_this_session_and_revokes_the_rest(
@@ -269,7 +269,12 @@ def test_changing_the_password_keeps_this_session_and_revokes_the_rest(
     assert response.text.count("data-token-id=") == 1
     assert web_client.get("/account").status_code == 200
     session.expire_all()
-    check_credentials(session, email=user.email, password="a brand new password")
+    assert _password_is(session, user, "a brand new password")
+
+
+def _password_is(session: Session, user: User, password: str) -> bool:
+    session.refresh(user)
+    return verify_password(user.password_hash, password)
 
 
 # ---------- sessions and API tokens ----------
