@@ -72,7 +72,7 @@ class Check:
 
 
 def sci(value: float, digits: int = 3) -> str:
-    """A number in scientific notation for people: ``1.76 × 10⁻⁹`` (``digits`` significant)."""
+    """Format a number in scientific notation for people: ``1.76 × 10⁻⁹`` (``digits`` figures)."""
     mantissa, exponent = f"{value:.{digits - 1}e}".split("e")
     power = int(exponent)
     if power == 0:
@@ -81,14 +81,17 @@ def sci(value: float, digits: int = 3) -> str:
 
 
 def pct(fraction: float, decimals: int = 1, *, sign: bool = False) -> str:
-    """A fraction as a percentage for people: ``0.143`` → ``14.3 %`` (``−28.6 %`` with sign)."""
+    """Format a fraction as a percentage for people: ``0.143`` → ``14.3 %`` (``−28.6 %``)."""
     text = f"{fraction * 100:{'+' if sign else ''}.{decimals}f} %"
     return text.replace("-", "−")
 
 
 def distinct(*values: float, digits: int = 3) -> list[str]:
-    """The values in :func:`sci` with the fewest digits (at least ``digits``) that tell apart
-    every pair of values that differ (docs/methods.md §9)."""
+    """Format values with :func:`sci` to the fewest digits that tell apart those that differ.
+
+    At least ``digits`` significant figures; more until every pair of different values reads
+    differently (docs/methods.md §9).
+    """
     for n in range(digits, 18):
         shown = [sci(v, n) for v in values]
         if all(

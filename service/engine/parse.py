@@ -176,7 +176,7 @@ class _Reader:
         return self._defaults[name]
 
     def section(self, raw: Any, loc: Loc, allowed: set[str] | tuple[str, ...]) -> dict[str, Any]:
-        """A JSON object with only ``allowed`` keys (None values dropped)."""
+        """Return a JSON object's ``allowed`` keys (None values dropped), refusing the others."""
         if raw is None:
             return {}
         if not isinstance(raw, Mapping):

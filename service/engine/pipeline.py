@@ -615,7 +615,7 @@ def _summary(
     used: tuple[int, ...],
     k_mean: float,
 ) -> Summary:
-    """Representative k_ref and its uncertainty (docs/methods.md §6.2–§6.5).
+    """Average the used trials into k_ref and state its uncertainty (docs/methods.md §6.2–§6.5).
 
     Each instrument's contribution is averaged over the trials with its sign (fully
     correlated, so averaging does not shrink it); the scatter of the trials enters once as
@@ -684,7 +684,7 @@ def _gradient_series(
 
 
 def result_to_dict(res: ReductionResult) -> dict[str, Any]:
-    """The contract's response JSON for ``POST /api/v1/reductions`` (plus added fields).
+    """Render a result as the contract's JSON for ``POST /api/v1/reductions`` (and additions).
 
     Contract fields keep their names; additions: ``method``, ``standard``, ``rules_version``,
     ``permeameter``, per-trial ``discharge_velocity_m_per_s``, ``intrinsic_permeability_m2``,

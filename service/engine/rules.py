@@ -96,7 +96,7 @@ class Rule:
     confirmed: bool = False
 
     def limit(self, limit_id: str) -> Limit:
-        """The limit with ``limit_id``.
+        """Return the limit with ``limit_id``.
 
         Raises
         ------
@@ -109,7 +109,7 @@ class Rule:
         raise KeyError(f"rule {self.id} has no limit {limit_id}")
 
     def value(self, limit_id: str) -> float:
-        """The value of the limit ``limit_id`` in its SI unit."""
+        """Return the value of the limit ``limit_id`` in its SI unit."""
         return self.limit(limit_id).value
 
 
@@ -151,7 +151,7 @@ class RuleSet:
     reference_temperature_provenance: Provenance = PRACTICE
 
     def rule(self, check_id: str) -> Rule | None:
-        """The rule that drives ``check_id``, or None when this set has none."""
+        """Return the rule that drives ``check_id``, or None when this set has none."""
         return self.rules.get(check_id)
 
 
@@ -171,7 +171,7 @@ class RuleBook:
     sets: Mapping[str | None, RuleSet] = field(default_factory=dict)
 
     def for_standard(self, standard: str | None) -> RuleSet:
-        """The rule set of ``standard`` (the no-standard set when the book has none for it)."""
+        """Return the rule set of ``standard`` (the no-standard set when the book has none)."""
         found = self.sets.get(standard)
         if found is None:
             found = self.sets[None]
@@ -180,7 +180,7 @@ class RuleBook:
     def with_limit(
         self, standard: str | None, rule_id: str, limit_id: str, value: float, *, version: str
     ) -> RuleBook:
-        """A copy of the book with one limit changed and a new version.
+        """Return a copy of the book with one limit changed, under a new version.
 
         This is how a laboratory's confirmed value replaces a built-in one; the rule stays
         unconfirmed until :meth:`confirmed` marks it.
@@ -196,7 +196,7 @@ class RuleBook:
     def confirmed(
         self, standard: str | None, rule_id: str, source: str | None = None, *, version: str
     ) -> RuleBook:
-        """A copy of the book with one rule marked confirmed by the laboratory.
+        """Return a copy of the book with one rule marked confirmed by the laboratory.
 
         ``source``, when given, replaces the rule's source text with the edition and clause as
         the laboratory reads them.
@@ -528,7 +528,7 @@ NO_STANDARD_RULES = RuleSet(
 
 
 def book(version: str, sets: Iterable[RuleSet]) -> RuleBook:
-    """A rule book of ``sets`` (keyed by their standard) under ``version``."""
+    """Make a rule book of ``sets`` (keyed by their standard) under ``version``."""
     return RuleBook(version=version, sets={s.standard: s for s in sets})
 
 

@@ -19,7 +19,7 @@ LARGE_DEGREES_OF_FREEDOM = 100
 
 
 def standard_uncertainty_from_resolution(resolution: float) -> float:
-    """Standard uncertainty of a reading limited by its resolution [same unit].
+    """Give the standard uncertainty of a reading limited by its resolution [same unit].
 
     Parameters
     ----------

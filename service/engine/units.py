@@ -105,7 +105,7 @@ def _a(noun: str) -> str:
 
 
 def accepted_text(kind: Kind, *, positive: bool) -> str:
-    """What a field of this kind accepts, for messages."""
+    """Describe what a field of this kind accepts, for messages."""
     if kind.dimensionality == "dimensionless":
         return f"{_a(kind.name)} such as {kind.examples}"
     rule = " greater than zero" if positive else ""
