@@ -219,6 +219,16 @@ def _limits(*items: tuple[str, float, str, str, Provenance]) -> tuple[Limit, ...
     return tuple(Limit(*item) for item in items)
 
 
+def _restated(
+    rule: Rule, source: str, provenance: Provenance | None = None, failure: Failure = "fail"
+) -> Rule:
+    """Return a general rule as a standard states it: its source, status and provenance."""
+    limits = rule.limits
+    if provenance is not None:
+        limits = tuple(replace(item, provenance=provenance) for item in limits)
+    return replace(rule, source=source, limits=limits, failure=failure)
+
+
 # --- rules every set shares (docs/methods.md §8) -------------------------------------------
 
 LAMINAR_FLOW = Rule(
@@ -339,20 +349,11 @@ D5084_RULES = RuleSet(
                 ("low_k", 1e-10, "m/s", "Mean k below which the wider band applies", MEMORY),
             ),
         ),
-        replace(
+        _restated(
             TREND,
-            source="ASTM D5084, termination criteria (no significant trend); "
-            "t-test on the slope of k",
-            failure="fail",
+            "ASTM D5084, termination criteria (no significant trend); t-test on the slope of k",
         ),
-        Rule(
-            "flow_ratio",
-            "ASTM D5084, termination criteria (outflow/inflow ratio)",
-            _limits(
-                ("low", 0.75, "", "Lowest outflow/inflow ratio", MEMORY),
-                ("high", 1.25, "", "Highest outflow/inflow ratio", MEMORY),
-            ),
-        ),
+        _restated(FLOW_RATIO, "ASTM D5084, termination criteria (outflow/inflow ratio)", MEMORY),
         Rule(
             "gradient_limit",
             "ASTM D5084, recommended maximum hydraulic gradient",
@@ -370,20 +371,7 @@ D5084_RULES = RuleSet(
             ),
             failure="warn",
         ),
-        Rule(
-            "saturation",
-            "ASTM D5084, saturation (B-value) criterion",
-            _limits(
-                ("b_min", 0.95, "", "Smallest B-value that shows saturation", MEMORY),
-                (
-                    "b_change",
-                    0.01,
-                    "",
-                    "Change of B over the last step for a stiff material",
-                    PRACTICE,
-                ),
-            ),
-        ),
+        _restated(SATURATION, "ASTM D5084, saturation (B-value) criterion"),
         Rule(
             "specimen_size",
             "ASTM D5084, specimen dimensions",
@@ -401,7 +389,7 @@ D5084_RULES = RuleSet(
             ),
             failure="warn",
         ),
-        replace(HEAD_CHANGE, source="ASTM D5084, accuracy of head measurement"),
+        _restated(HEAD_CHANGE, "ASTM D5084, accuracy of head measurement", failure="warn"),
     ),
 )
 
@@ -418,12 +406,9 @@ D2434_RULES = RuleSet(
     permeameter=RIGID_WALL,
     rules=_rules(
         *GENERAL,
-        Rule(
-            "steady_state",
+        _restated(
+            STEADY_STATE,
             "ASTM D5856, agreement of k at three gradients, applied to ASTM D2434 runs",
-            _limits(
-                ("band", 0.25, "", "Largest deviation of a run from the mean", PRACTICE),
-            ),
         ),
         FLOW_RATIO,
         Rule(
@@ -463,11 +448,7 @@ D5856_RULES = RuleSet(
     permeameter=RIGID_WALL,
     rules=_rules(
         *GENERAL,
-        Rule(
-            "steady_state",
-            "ASTM D5856, agreement of k at three gradients",
-            _limits(("band", 0.25, "", "Largest deviation of a run from the mean", READ)),
-        ),
+        _restated(STEADY_STATE, "ASTM D5856, agreement of k at three gradients", READ),
         TREND,
         FLOW_RATIO,
         SATURATION,
@@ -490,19 +471,9 @@ ISO_RULES = RuleSet(
         STEADY_STATE,
         TREND,
         FLOW_RATIO,
-        Rule(
-            "saturation",
+        _restated(
+            SATURATION,
             "ISO 17892-11, saturation of the specimen in a flexible-wall cell (B-value)",
-            _limits(
-                ("b_min", 0.95, "", "Smallest B-value that shows saturation", MEMORY),
-                (
-                    "b_change",
-                    0.01,
-                    "",
-                    "Change of B over the last step for a stiff material",
-                    PRACTICE,
-                ),
-            ),
         ),
         Rule(
             "specimen_size",

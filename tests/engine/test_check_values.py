@@ -454,18 +454,20 @@ def test_cv9d_saturation():
 
 
 # --- hand-computed check values (Darcy's law, continuity; water from the iapws package) ----
+def _pumped(**trial: str) -> dict:
+    """Constant rate of 0.020 mL/min through L = 7.30 cm, D = 7.10 cm at 20 °C."""
+    return {
+        "method": "constant_rate",
+        "specimen": {"length": "7.30 cm", "diameter": "7.10 cm"},
+        "trials": [{"flow_rate": "0.020 mL/min", "temperature": "20 degC", **trial}],
+    }
+
+
 def test_constant_rate_with_head_difference():
     # k = q·L/(A·Δh) (Darcy's law; ASTM D5084 Method D): q = 0.020 mL/min = 3.3333e-10 m³/s,
     # L = 7.30 cm, A = π·(7.10 cm)²/4 = 39.5919 cm², Δh = 100 cm →
     # k = 3.3333e-10·0.073/(39.5919e-4·1.00) = 6.1461e-9 m/s; at 20 °C k20 = k_T.
-    payload = {
-        "method": "constant_rate",
-        "specimen": {"length": "7.30 cm", "diameter": "7.10 cm"},
-        "trials": [
-            {"flow_rate": "0.020 mL/min", "head_difference": "100 cm", "temperature": "20 degC"}
-        ],
-    }
-    body = run(payload)
+    body = run(_pumped(head_difference="100 cm"))
     assert rel(body["trials"][0]["k_m_per_s"], 6.1461e-9) < 1e-4
     assert body["trials"][0]["gradient"] == pytest.approx(1.00 / 0.073, rel=1e-9)
 
@@ -474,13 +476,7 @@ def test_k_from_a_pressure_difference():
     # Δh = Δu/(ρ_w(T)·g): 35 kPa at 20 °C with ρ_w = 998.207 kg/m³ (IAPWS-95, iapws package)
     # and g = 9.80665 m/s² (exact) is 3.5754 m of water; with the nominal 1000 kg/m³ it is
     # 3.5690 m. k = q·L/(A·Δh) as above.
-    payload = {
-        "method": "constant_rate",
-        "specimen": {"length": "7.30 cm", "diameter": "7.10 cm"},
-        "trials": [
-            {"flow_rate": "0.020 mL/min", "pressure_difference": "35 kPa", "temperature": "20 degC"}
-        ],
-    }
+    payload = _pumped(pressure_difference="35 kPa")
     q, length, area = 0.020e-6 / 60, 0.073, math.pi * 0.071**2 / 4
     head = 35e3 / (rho_iapws(20.0) * G)
     assert head == pytest.approx(3.5754, abs=1e-4)

@@ -245,24 +245,23 @@ def test_saturation_under_d5084_depends_on_the_permeameter():
     assert rigid["permeameter"] == "rigid_wall"
 
 
-def test_d2434_largest_particle_under_2mm_needs_76mm():
-    # ASTM D2434 Table 1 (from memory): a largest particle under 2.00 mm leaves nothing on the
-    # 2.00 mm sieve, so the < 35 % column applies: 76 mm, not 114 mm
+@pytest.mark.parametrize(
+    ("largest", "status", "limit_mm"),
+    [
+        # ASTM D2434 Table 1 (from memory): a largest particle under 2.00 mm leaves nothing on
+        # the 2.00 mm sieve, so the < 35 % column applies: 76 mm, not 114 mm
+        ("1.5 mm", "pass", 76),
+        # between 2.00 and 9.5 mm with the retained percentage unknown: the wider column
+        ("4.75 mm", "warn", 114),
+    ],
+)
+def test_d2434_size_table(largest, status, limit_mm):
     payload = cv1()
     payload["standard"] = "ASTM D2434"
-    payload["specimen"].update(diameter="80 mm", max_particle_size="1.5 mm")
+    payload["specimen"].update(diameter="80 mm", max_particle_size=largest)
     found = check(run(payload), "specimen_size")
-    assert found["status"] == "pass"
-    assert found["limit"] == pytest.approx(76)
-
-
-def test_d2434_retained_unknown_assumes_the_wider_column():
-    payload = cv1()
-    payload["standard"] = "ASTM D2434"
-    payload["specimen"].update(diameter="80 mm", max_particle_size="4.75 mm")
-    found = check(run(payload), "specimen_size")
-    assert found["status"] == "warn"
-    assert found["limit"] == pytest.approx(114)
+    assert found["status"] == status
+    assert found["limit"] == pytest.approx(limit_mm)
 
 
 @pytest.mark.parametrize(("re_number", "status"), [(0.5, "pass"), (3.0, "warn"), (12.0, "fail")])

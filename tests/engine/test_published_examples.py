@@ -10,7 +10,7 @@ from __future__ import annotations
 import pytest
 from iapws import IAPWS95  # test-only outside reference (IAPWS-95 and IAPWS 2008)
 
-from tests.engine.helpers import check, rel, run
+from tests.engine.helpers import check, constant_rate, cv2, rel, run
 
 INCH_M = 0.0254  # NIST SP 811 App. B, exact
 FOOT_M = 0.3048  # NIST SP 811 App. B, exact
@@ -23,6 +23,19 @@ def _das_7_1() -> dict:
         "method": "constant_head",
         "specimen": {"length": "30 cm", "area": "177 cm**2"},
         "trials": [{"volume": "350 cm**3", "duration": "5 min", "head_difference": "50 cm"}],
+    }
+
+
+def _das_7_2(**trial: str) -> dict:
+    # Das, Principles of Geotechnical Engineering, 7th ed. (2010), Example 7.2 (from memory):
+    # falling head, L = 200 mm, A = 1000 mm², a = 40 mm², head 500 mm → 300 mm in 180 s.
+    return {
+        "method": "falling_head",
+        "specimen": {"length": "200 mm", "area": "1000 mm**2"},
+        "apparatus": {"standpipe_area": "40 mm**2"},
+        "trials": [
+            {"head_initial": "500 mm", "head_final": "300 mm", "duration": "180 s", **trial}
+        ],
     }
 
 
@@ -59,32 +72,17 @@ def test_das_example_7_1_in_us_customary_units_through_the_whole_path():
 
 
 def test_das_example_7_2_falling_head():
-    # Das, Principles of Geotechnical Engineering, 7th ed., Example 7.2 (from memory):
-    # L = 200 mm, A = 1000 mm², a = 40 mm², head 500 mm → 300 mm in 180 s;
-    # k = 2.303·(a·L/(A·t))·log10(h1/h2) = 2.27 × 10⁻³ cm/s
-    payload = {
-        "method": "falling_head",
-        "specimen": {"length": "200 mm", "area": "1000 mm**2"},
-        "apparatus": {"standpipe_area": "40 mm**2"},
-        "trials": [{"head_initial": "500 mm", "head_final": "300 mm", "duration": "180 s"}],
-    }
-    assert rel(run(payload)["result"]["k_ref_cm_per_s"], 2.27e-3) < 2.5e-3
+    # Das Example 7.2 (from memory): k = 2.303·(a·L/(A·t))·log10(h1/h2) = 2.27 × 10⁻³ cm/s
+    assert rel(run(_das_7_2())["result"]["k_ref_cm_per_s"], 2.27e-3) < 2.5e-3
 
 
 def test_das_example_7_3_absolute_permeability_with_stated_viscosity():
     # Das, Principles of Geotechnical Engineering, 7th ed., Example 7.3 (from memory):
     # k = 3 × 10⁻⁷ cm/s, η(25 °C) = 0.0911 × 10⁻⁴ g·s/cm², γw = 1 g/cm³ (gram-force) →
     # K = k·η/γw = 0.2733 × 10⁻¹¹ cm² = 2.733 × 10⁻¹⁶ m².
-    # A constant-rate trial with k = 10·q (L = 10 cm, A = 100 cm², Δh = 100 cm) gives k_T.
-    payload = {
-        "method": "constant_rate",
-        "options": {"viscosity": "0.0911e-4 gf*s/cm**2", "unit_weight": "1 gf/cm**3"},
-        "specimen": {"length": "10 cm", "area": "100 cm**2"},
-        "trials": [
-            {"flow_rate": "3e-10 m**3/s", "head_difference": "100 cm", "temperature": "25 degC"}
-        ],
-    }
-    body = run(payload)
+    # A constant-rate trial with k = 10·q (helpers.constant_rate) gives that k_T.
+    options = {"viscosity": "0.0911e-4 gf*s/cm**2", "unit_weight": "1 gf/cm**3"}
+    body = run(constant_rate([3e-9], temperature="25 degC", options=options))
     assert rel(body["trials"][0]["k_m_per_s"], 3e-9) < 1e-12
     assert rel(body["result"]["intrinsic_permeability_m2"], 2.733e-16) < 5e-4
 
@@ -94,13 +92,8 @@ def test_stated_viscosity_sets_the_temperature_factor():
     # from the iapws package (IAPWS-95 state at 0.101325 MPa, IAPWS 2008 viscosity).
     eta_t = 0.0911e-4 * 9.80665e-3 / 1e-4  # Das Example 7.3 value in Pa·s (gf = 9.80665e-3 N)
     eta_20 = IAPWS95(T=293.15, P=0.101325).mu
-    payload = {
-        "method": "constant_rate",
-        "options": {"viscosity": "0.0911e-4 gf*s/cm**2"},
-        "specimen": {"length": "10 cm", "area": "100 cm**2"},
-        "trials": [{"flow_rate": "3e-10 m**3/s", "head_difference": "100 cm"}],
-    }
-    body = run(payload)
+    options = {"viscosity": "0.0911e-4 gf*s/cm**2"}
+    body = run(constant_rate([3e-9], temperature=None, options=options))
     assert body["trials"][0]["temperature_factor"] == pytest.approx(eta_t / eta_20, rel=1e-6)
     assert rel(body["result"]["k_ref_m_per_s"], 3e-9 * eta_t / eta_20) < 1e-6
     # a stated viscosity needs no temperature: nothing is left uncorrected
@@ -143,20 +136,7 @@ DAS_TABLE_7_2 = [  # Das, Principles of Geotechnical Engineering, 7th ed., Table
 def test_viscosity_correction_against_das_table_7_2(temp, ratio):
     # Das Table 7.2 (from memory), tolerance 0.0015 for the three printed decimals and the
     # older viscosity data; through a whole reduction (Das Example 7.2 at that temperature)
-    payload = {
-        "method": "falling_head",
-        "specimen": {"length": "200 mm", "area": "1000 mm**2"},
-        "apparatus": {"standpipe_area": "40 mm**2"},
-        "trials": [
-            {
-                "head_initial": "500 mm",
-                "head_final": "300 mm",
-                "duration": "180 s",
-                "temperature": f"{temp} degC",
-            }
-        ],
-    }
-    body = run(payload)
+    body = run(_das_7_2(temperature=f"{temp} degC"))
     assert body["trials"][0]["temperature_factor"] == pytest.approx(ratio, abs=1.5e-3)
     assert rel(body["result"]["k_ref_cm_per_s"], 2.27e-3 * ratio) < 4e-3
 
@@ -177,18 +157,7 @@ CRC_VISCOSITY_MPA_S = [  # CRC Handbook of Chemistry and Physics, "Viscosity of 
 def test_viscosity_against_crc_handbook(temp, mpa_s):
     # K = k·η/(ρ_w·g) at the test temperature (methods.md §11.2): a trial with k_T = 3e-9 m/s
     # reports K from which η follows with ρ_w from IAPWS-95 (iapws package) and g exact.
-    payload = {
-        "method": "constant_rate",
-        "specimen": {"length": "10 cm", "area": "100 cm**2"},
-        "trials": [
-            {
-                "flow_rate": "3e-10 m**3/s",
-                "head_difference": "100 cm",
-                "temperature": f"{temp} degC",
-            }
-        ],
-    }
-    body = run(payload)
+    body = run(constant_rate([3e-9], temperature=f"{temp} degC"))
     rho = IAPWS95(T=temp + 273.15, P=0.101325).rho
     eta = body["trials"][0]["intrinsic_permeability_m2"] * rho * 9.80665 / 3e-9
     assert eta * 1e3 == pytest.approx(mpa_s, abs=1e-3)
@@ -200,22 +169,8 @@ def test_5c_and_35c_through_the_whole_path(temp):
     # factor equals η(T)/η(20 °C) of the iapws package (IAPWS-95 state, IAPWS 2008 viscosity)
     # and of the CRC Handbook table (1.518/1.002 and 0.719/1.002, from memory, ±0.1 %); under
     # ASTM D5084 a test outside 15–30 °C is flagged (D5084 scope).
-    payload = {
-        "method": "falling_head",
-        "standard": "ASTM D5084",
-        "permeameter": "flexible_wall",
-        "saturation": [{"b_value": 0.97}],
-        "specimen": {"length": "11.60 cm", "diameter": "7.10 cm"},
-        "apparatus": {"standpipe_diameter": "0.60 cm"},
-        "trials": [
-            {
-                "head_initial": "100.0 cm",
-                "head_final": "70.0 cm",
-                "duration": "3600 s",
-                "temperature": f"{temp} degC",
-            }
-        ],
-    }
+    payload = dict(cv2(), standard="ASTM D5084", saturation=[{"b_value": 0.97}])
+    payload["trials"][0]["temperature"] = f"{temp} degC"
     body = run(payload)
     expected = IAPWS95(T=temp + 273.15, P=0.101325).mu / IAPWS95(T=293.15, P=0.101325).mu
     factor = body["trials"][0]["temperature_factor"]
