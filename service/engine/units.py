@@ -53,12 +53,7 @@ VISCOSITY = Kind(
 UNIT_WEIGHT = Kind(
     "unit weight", "N/m**3", "[mass]/[length]**2/[time]**2", "'9.79 kN/m**3' or '62.3 lbf/ft**3'"
 )
-FRACTION = Kind(
-    "fraction or percentage",
-    "",
-    "dimensionless",
-    '\'18.5 %\', or {"value": 0.185, "unit": ""} for a fraction',
-)
+FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' (with its % sign)")
 NUMBER = Kind("number", "", "dimensionless", "a plain number such as 2.70")
 
 # Percentages and fractions must say which they are: a bare 5 is never read as 500 %.
