@@ -20,23 +20,6 @@ WARN = "warn"
 FAIL = "fail"
 NOT_APPLICABLE = "not_applicable"
 
-CHECK_IDS = (
-    "steady_state",
-    "flow_ratio",
-    "gradient_limit",
-    "saturation",
-    "specimen_size",
-    "laminar_flow",
-    "temperature_range",
-    "specification",
-    "hazen",
-    "darcy_linearity",
-    "trend",
-    "head_change",
-    "phase_relations",
-)
-"""Every check the engine reports, in the order of the response."""
-
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 _COUNT_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six"}
 
