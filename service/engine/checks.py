@@ -1,4 +1,7 @@
-"""Acceptance, plausibility and compliance checks, each with its measured value, limit and source.
+"""Acceptance checks of the test's standard, each with its measured value, limit and source.
+
+Plausibility checks are in :mod:`service.engine.plausibility`, the specification limit in
+:mod:`service.engine.compliance`; all report a :class:`Check`.
 
 Statuses: ``pass``, ``warn``, ``fail``, ``not_applicable``. Each check takes the :class:`Rule`
 of the test's rule set (docs/methods.md §7–§8); a check whose rule set has no rule for it is
@@ -12,7 +15,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from service.engine.rules import FLEXIBLE_WALL, GUARD_BAND, RIGID_WALL, Rule
+from service.engine.rules import FLEXIBLE_WALL, RIGID_WALL, Rule
 from service.engine.uncertainty import student_t_quantile
 
 PASS = "pass"
@@ -90,13 +93,15 @@ def _count(n: int) -> str:
     return _COUNT_WORDS.get(n, str(n))
 
 
-def _na(check_id: str, message: str) -> Check:
+def not_applicable(check_id: str, message: str) -> Check:
+    """Report a check that cannot be judged (no rule, or not enough entries)."""
     return Check(check_id, NOT_APPLICABLE, None, None, message, "")
 
 
-def _result(
+def judged(
     rule: Rule, status: str, measured: float | None, limit: float | None, message: str
 ) -> Check:
+    """Report a check judged by ``rule``, with its source and confirmation."""
     return Check(rule.id, status, measured, limit, message, rule.source, rule.confirmed)
 
 
@@ -126,11 +131,11 @@ def steady_state(
         Largest |k_j/k̄ − 1| against the band (docs/methods.md §8.1).
     """
     if rule is None:
-        return _na("steady_state", "No repeatability rule is set for this standard.")
+        return not_applicable("steady_state", "No repeatability rule is set for this standard.")
     n = len(k_values)
     if last_only:
         if n < determinations:
-            return _result(
+            return judged(
                 rule,
                 rule.failure,
                 float(n),
@@ -138,28 +143,30 @@ def steady_state(
                 f"At least {_count(determinations)} consecutive determinations are needed; "
                 f"{n} given.",
             )
-        judged = list(k_values[-determinations:])
+        window = list(k_values[-determinations:])
         what = f"last {_count(determinations)} determinations"
     else:
         if n < 2:
-            return _na("steady_state", "A single determination: repeatability cannot be judged.")
+            return not_applicable(
+                "steady_state", "A single determination: repeatability cannot be judged."
+            )
         if n < determinations:
-            return _result(
+            return judged(
                 rule,
                 WARN,
                 float(n),
                 float(determinations),
                 f"At least {_count(determinations)} determinations are expected; {n} given.",
             )
-        judged = list(k_values)
+        window = list(k_values)
         what = "determinations"
-    mean = sum(judged) / len(judged)
+    mean = sum(window) / len(window)
     band = rule.value("band")
     if _has(rule, "band_low_k") and mean < rule.value("low_k"):
         band = rule.value("band_low_k")
-    deviation = max(abs(k / mean - 1.0) for k in judged)
+    deviation = max(abs(k / mean - 1.0) for k in window)
     if deviation <= band:
-        return _result(
+        return judged(
             rule,
             PASS,
             deviation,
@@ -167,7 +174,7 @@ def steady_state(
             f"The {what} lie within {pct(deviation, 1)} of their mean {sci(mean)} m/s "
             f"(limit ±{pct(band, 0)}).",
         )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         deviation,
@@ -197,10 +204,10 @@ def trend(k_values: Sequence[float], rule: Rule | None) -> Check:
         exceeds ``max_change`` (docs/methods.md §8.2).
     """
     if rule is None:
-        return _na("trend", "No trend rule is set for this standard.")
+        return not_applicable("trend", "No trend rule is set for this standard.")
     n = len(k_values)
     if n < 3:
-        return _na("trend", "Needs three or more determinations to judge a trend.")
+        return not_applicable("trend", "Needs three or more determinations to judge a trend.")
     xs = range(n)
     x_mean = (n - 1) / 2.0
     mean = sum(k_values) / n
@@ -222,7 +229,7 @@ def trend(k_values: Sequence[float], rule: Rule | None) -> Check:
         statistic = abs(slope) / error
         shown = f"t = {statistic:.2f}"
     if statistic > critical:
-        return _result(
+        return judged(
             rule,
             rule.failure,
             change,
@@ -232,7 +239,7 @@ def trend(k_values: Sequence[float], rule: Rule | None) -> Check:
             f"test at {pct(alpha, 0)}): the test has not reached a steady state.",
         )
     if abs(change) > limit:
-        return _result(
+        return judged(
             rule,
             WARN,
             change,
@@ -241,7 +248,7 @@ def trend(k_values: Sequence[float], rule: Rule | None) -> Check:
             f"slope is not significant at {pct(alpha, 0)} ({shown}, critical {critical:.2f}) "
             f"but the change exceeds ±{pct(limit, 0)}: look at k against time before accepting.",
         )
-    return _result(
+    return judged(
         rule,
         PASS,
         change,
@@ -267,15 +274,15 @@ def flow_ratio(ratios: Sequence[float | None], rule: Rule | None) -> Check:
         The ratio furthest from 1 against low ≤ V_out/V_in ≤ high (docs/methods.md §8.3).
     """
     if rule is None:
-        return _na("flow_ratio", "No flow-balance rule is set for this standard.")
+        return not_applicable("flow_ratio", "No flow-balance rule is set for this standard.")
     known = [r for r in ratios if r is not None]
     if not known:
-        return _na("flow_ratio", "No trial gives both inflow and outflow volumes.")
+        return not_applicable("flow_ratio", "No trial gives both inflow and outflow volumes.")
     low, high = rule.value("low"), rule.value("high")
     worst = max(known, key=lambda r: abs(r - 1.0))
     limit = high if worst >= 1.0 else low
     if all(low <= r <= high for r in known):
-        return _result(
+        return judged(
             rule,
             PASS,
             worst,
@@ -283,7 +290,7 @@ def flow_ratio(ratios: Sequence[float | None], rule: Rule | None) -> Check:
             f"Outflow/inflow ratios lie between {low:g} and {high:g} "
             f"(furthest from 1: {worst:.3f}).",
         )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         worst,
@@ -335,7 +342,7 @@ def gradient_limit(k_ref_m_per_s: float, max_gradient: float, rule: Rule | None)
         docs/methods.md §8.4.
     """
     if rule is None:
-        return _na("gradient_limit", "No gradient limit is set for this standard.")
+        return not_applicable("gradient_limit", "No gradient limit is set for this standard.")
     if _has(rule, "gradient_max"):
         limit = rule.value("gradient_max")
         beyond = ""
@@ -345,7 +352,7 @@ def gradient_limit(k_ref_m_per_s: float, max_gradient: float, rule: Rule | None)
             " (k is above the range of the table)" if k_ref_m_per_s > rule.value("k_max") else ""
         )
     if max_gradient <= limit:
-        return _result(
+        return judged(
             rule,
             PASS,
             max_gradient,
@@ -353,7 +360,7 @@ def gradient_limit(k_ref_m_per_s: float, max_gradient: float, rule: Rule | None)
             f"The largest gradient, {max_gradient:.3g}, is within the recommended {limit:g}"
             f"{beyond}.",
         )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         max_gradient,
@@ -388,27 +395,27 @@ def saturation(
         (docs/methods.md §8.5).
     """
     if rule is None:
-        return _na("saturation", "No saturation rule is set for this standard.")
+        return not_applicable("saturation", "No saturation rule is set for this standard.")
     if permeameter == RIGID_WALL:
-        return _na("saturation", "Rigid-wall permeameter: no B-value check applies.")
+        return not_applicable("saturation", "Rigid-wall permeameter: no B-value check applies.")
     b_min = rule.value("b_min")
     if not b_values:
         if permeameter == FLEXIBLE_WALL:
-            return _result(
+            return judged(
                 rule,
                 rule.failure,
                 None,
                 b_min,
                 "No B-value was recorded: a flexible-wall test needs a saturation check.",
             )
-        return _na("saturation", "No B-value was recorded.")
+        return not_applicable("saturation", "No B-value was recorded.")
     last = b_values[-1]
     if last >= b_min:
-        return _result(rule, PASS, last, b_min, f"B = {last:.2f} reaches {b_min:.2f}.")
+        return judged(rule, PASS, last, b_min, f"B = {last:.2f} reaches {b_min:.2f}.")
     if stiff_material and len(b_values) >= 2:
         change = abs(last - b_values[-2])
         if change <= rule.value("b_change"):
-            return _result(
+            return judged(
                 rule,
                 WARN,
                 last,
@@ -421,7 +428,7 @@ def saturation(
         if stiff_material
         else " (the stiff-material allowance needs the material declared stiff)"
     )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         last,
@@ -489,16 +496,16 @@ def specimen_size(
         docs/methods.md §8.6.
     """
     if rule is None:
-        return _na("specimen_size", "No specimen-size rule is set for this standard.")
+        return not_applicable("specimen_size", "No specimen-size rule is set for this standard.")
     if _has(rule, "row1_narrow"):
         return _size_table(rule, diameter_m, max_particle_m, retained_fraction)
     if diameter_m is None or (length_m is None and _has(rule, "min_dimension")):
-        return _na("specimen_size", "Needs the specimen diameter and height.")
+        return not_applicable("specimen_size", "Needs the specimen diameter and height.")
     if _has(rule, "min_dimension") and length_m is not None:
         smallest = min(diameter_m, length_m)
         floor = rule.value("min_dimension")
         if smallest < floor:
-            return _result(
+            return judged(
                 rule,
                 rule.failure,
                 smallest * 1000,
@@ -508,8 +515,8 @@ def specimen_size(
             )
     if max_particle_m is None:
         if not _has(rule, "min_dimension"):
-            return _na("specimen_size", "Needs the largest particle size.")
-        return _result(
+            return not_applicable("specimen_size", "Needs the largest particle size.")
+        return judged(
             rule,
             PASS,
             min(diameter_m, length_m or diameter_m) * 1000,
@@ -520,14 +527,14 @@ def specimen_size(
     ratio = diameter_m / max_particle_m
     need = rule.value("min_ratio")
     if ratio < need:
-        return _result(
+        return judged(
             rule,
             rule.failure,
             ratio,
             need,
             f"Diameter is {ratio:.1f} times the largest particle; at least {need:g} needed.",
         )
-    return _result(
+    return judged(
         rule,
         PASS,
         ratio,
@@ -543,11 +550,13 @@ def _size_table(
     retained_fraction: float | None,
 ) -> Check:
     if diameter_m is None or max_particle_m is None:
-        return _na("specimen_size", "Needs the specimen diameter and the maximum particle size.")
+        return not_applicable(
+            "specimen_size", "Needs the specimen diameter and the maximum particle size."
+        )
     need, assumed = table_min_diameter(max_particle_m, retained_fraction, rule)
     largest = rule.value("row2_max")
     if need is None:
-        return _result(
+        return judged(
             rule,
             rule.failure,
             max_particle_m * 1000,
@@ -558,67 +567,20 @@ def _size_table(
     note = " (retained percentage not given: the stricter column assumed)" if assumed else ""
     measured = diameter_m * 1000
     if diameter_m + 1e-12 >= need:
-        return _result(
+        return judged(
             rule,
             PASS,
             measured,
             need * 1000,
             f"Permeameter diameter {measured:.0f} mm meets the {need * 1000:.0f} mm minimum{note}.",
         )
-    return _result(
+    return judged(
         rule,
         WARN if assumed else rule.failure,
         measured,
         need * 1000,
         f"Permeameter diameter {measured:.0f} mm is below the {need * 1000:.0f} mm minimum for "
         f"a {max_particle_m * 1000:.1f} mm maximum particle size{note}.",
-    )
-
-
-def laminar_flow(reynolds: float | None, rule: Rule | None) -> Check:
-    """Reynolds-number check of laminar (Darcy) flow [-].
-
-    Parameters
-    ----------
-    reynolds : float or None
-        Re = ρ_w·v·D10/η of the fastest accepted trial.
-    rule : Rule or None
-        ``warn_from`` and ``fail_from``.
-
-    Returns
-    -------
-    Check
-        Pass below warn_from, warn below fail_from, fail above (docs/methods.md §8.7).
-    """
-    if rule is None:
-        return _na("laminar_flow", "No laminar-flow rule is set.")
-    if reynolds is None:
-        return _na("laminar_flow", "Needs D10 of the soil to compute a Reynolds number.")
-    warn_from, fail_from = rule.value("warn_from"), rule.value("fail_from")
-    if reynolds < warn_from:
-        return _result(
-            rule,
-            PASS,
-            reynolds,
-            warn_from,
-            f"Re = {reynolds:.3g} < {warn_from:g}: laminar flow.",
-        )
-    if reynolds < fail_from:
-        return _result(
-            rule,
-            WARN,
-            reynolds,
-            warn_from,
-            f"Re = {reynolds:.3g} lies between {warn_from:g} and {fail_from:g}: Darcy's law may "
-            "start to fail.",
-        )
-    return _result(
-        rule,
-        rule.failure,
-        reynolds,
-        fail_from,
-        f"Re = {reynolds:.3g} ≥ {fail_from:g}: flow is not laminar; k from this test is not a "
-        "Darcy k.",
     )
 
 
@@ -657,15 +619,15 @@ def temperature_range(
         )
     temps = [t for t in temperatures_c if t is not None]
     if rule is None or not temps:
-        return _na("temperature_range", "No temperature range is set for this standard.")
+        return not_applicable("temperature_range", "No temperature range is set for this standard.")
     low, high = rule.value("low"), rule.value("high")
     worst = max(temps, key=lambda t: max(low - t, t - high))
     limit = low if worst < low else high
     if all(low <= t <= high for t in temps):
-        return _result(
+        return judged(
             rule, PASS, worst, limit, f"All test temperatures lie within {low:g}–{high:g} °C."
         )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         worst,
@@ -691,13 +653,13 @@ def head_change(head_terms: Sequence[tuple[int, float]], rule: Rule | None) -> C
         The largest head term against max_head_term (docs/methods.md §8.9).
     """
     if rule is None:
-        return _na("head_change", "No head-change rule is set for this standard.")
+        return not_applicable("head_change", "No head-change rule is set for this standard.")
     if not head_terms:
-        return _na("head_change", "No falling-head interval.")
+        return not_applicable("head_change", "No falling-head interval.")
     limit = rule.value("max_head_term")
     worst_trial, worst = max(head_terms, key=lambda item: item[1])
     if worst <= limit:
-        return _result(
+        return judged(
             rule,
             PASS,
             worst,
@@ -705,224 +667,13 @@ def head_change(head_terms: Sequence[tuple[int, float]], rule: Rule | None) -> C
             f"Every head change is large enough for the reading resolution (head term at most "
             f"{pct(worst, 2)}, limit {pct(limit, 0)}).",
         )
-    return _result(
+    return judged(
         rule,
         rule.failure,
         worst,
         limit,
         f"In trial {worst_trial} the head changes so little that the head readings alone make "
         f"k uncertain by {pct(worst, 1)} (limit {pct(limit, 0)}): let the head fall further.",
-    )
-
-
-def phase_relations(
-    saturation_degree: float | None,
-    saturation_u: float | None,
-    void_ratio: float | None,
-    rule: Rule | None,
-) -> Check:
-    """Degree of saturation and void ratio of the specimen against what is possible [-].
-
-    Parameters
-    ----------
-    saturation_degree : float or None
-        S [-] (1.0 for 100 %).
-    saturation_u : float or None
-        Standard uncertainty of S from the inputs' stated uncertainties [-].
-    void_ratio : float or None
-        e [-].
-    rule : Rule or None
-        ``tolerance_without_u`` and ``coverage``.
-
-    Returns
-    -------
-    Check
-        Warn when e ≤ 0 or S > 1 + tolerance, tolerance = coverage·u(S) when known,
-        else tolerance_without_u (docs/methods.md §8.10).
-    """
-    if rule is None:
-        return _na("phase_relations", "No phase-relations rule is set.")
-    if void_ratio is not None and void_ratio <= 0.0:
-        return _result(
-            rule,
-            rule.failure,
-            void_ratio,
-            0.0,
-            f"The void ratio {void_ratio:.3f} is not above zero: a specimen entry is wrong.",
-        )
-    if saturation_degree is None:
-        return _na(
-            "phase_relations",
-            "Needs the wet mass, dimensions, water content and specific gravity of the specimen.",
-        )
-    if saturation_u is not None:
-        tolerance = rule.value("coverage") * saturation_u
-        why = f"its uncertainty (±{pct(tolerance, 1)})"
-    else:
-        tolerance = rule.value("tolerance_without_u")
-        why = f"the {pct(tolerance, 0)} allowed when the entries carry no uncertainty"
-    limit = 1.0 + tolerance
-    if saturation_degree > limit:
-        return _result(
-            rule,
-            rule.failure,
-            saturation_degree,
-            limit,
-            f"Degree of saturation {pct(saturation_degree, 1)} is above 100 % by more than {why}: "
-            "check the wet mass, dimensions, water content and specific gravity.",
-        )
-    return _result(
-        rule,
-        PASS,
-        saturation_degree,
-        limit,
-        f"Degree of saturation {pct(saturation_degree, 1)} is possible (at most 100 % within "
-        f"{why}).",
-    )
-
-
-def specification(
-    k_ref_m_per_s: float,
-    k_max_m_per_s: float | None,
-    expanded_u_rel: float | None,
-    decision_rule: str,
-    reference_temperature_c: float,
-) -> Check:
-    """Compliance of the representative k_ref with the project's limit under a decision rule.
-
-    Parameters
-    ----------
-    k_ref_m_per_s : float
-        Representative k at the reference temperature [m/s].
-    k_max_m_per_s : float or None
-        Specification limit [m/s]; None when there is none.
-    expanded_u_rel : float or None
-        Expanded relative uncertainty U/k of k_ref [-].
-    decision_rule : {"simple", "guard_band"}
-        ILAC-G8:09/2019 simple acceptance (w = 0) or guarded acceptance (w = U).
-    reference_temperature_c : float
-        Reference temperature, named in the message [°C].
-
-    Returns
-    -------
-    Check
-        simple: pass when k ≤ k_max, else fail. guard_band: pass when k + U ≤ k_max, fail
-        when k − U > k_max, otherwise warn (not decidable at this uncertainty). Figures are
-        shown with enough digits to differ when they differ (docs/methods.md §9).
-    """
-    if k_max_m_per_s is None:
-        return _na("specification", "No specification limit was given.")
-    what = f"k at {reference_temperature_c:g} °C"
-    k = k_ref_m_per_s
-    if decision_rule != GUARD_BAND:
-        source = "ILAC-G8:09/2019, simple acceptance (w = 0)"
-        shown_k, shown_max = distinct(k, k_max_m_per_s)
-        if k <= k_max_m_per_s:
-            note = ""
-            if expanded_u_rel is not None and k * (1 + expanded_u_rel) > k_max_m_per_s:
-                note = " The limit lies within the expanded uncertainty of the result."
-            return Check(
-                "specification",
-                PASS,
-                k,
-                k_max_m_per_s,
-                f"{what} = {shown_k} m/s meets the limit of {shown_max} m/s.{note}",
-                source,
-            )
-        return Check(
-            "specification",
-            FAIL,
-            k,
-            k_max_m_per_s,
-            f"{what} = {shown_k} m/s exceeds the limit of {shown_max} m/s.",
-            source,
-        )
-    source = "ILAC-G8:09/2019, guarded acceptance (w = U)"
-    if expanded_u_rel is None:
-        return Check(
-            "specification",
-            WARN,
-            k,
-            k_max_m_per_s,
-            "Guarded acceptance needs the expanded uncertainty of k, and none could be "
-            "computed: give the instruments' uncertainties.",
-            source,
-        )
-    expanded = expanded_u_rel * k
-    upper, lower = k + expanded, k - expanded
-    shown_upper, shown_lower, shown_max, shown_k, shown_u = distinct(
-        upper, lower, k_max_m_per_s, k, expanded
-    )
-    figures = f"({what} = {shown_k} m/s, U = {shown_u} m/s)"
-    if upper <= k_max_m_per_s:
-        return Check(
-            "specification",
-            PASS,
-            k,
-            k_max_m_per_s,
-            f"k + U = {shown_upper} m/s is within the limit of {shown_max} m/s {figures}.",
-            source,
-        )
-    if lower > k_max_m_per_s:
-        return Check(
-            "specification",
-            FAIL,
-            k,
-            k_max_m_per_s,
-            f"k − U = {shown_lower} m/s exceeds the limit of {shown_max} m/s {figures}.",
-            source,
-        )
-    return Check(
-        "specification",
-        WARN,
-        k,
-        k_max_m_per_s,
-        f"The limit of {shown_max} m/s lies between k − U = {shown_lower} m/s and k + U = "
-        f"{shown_upper} m/s {figures}: compliance cannot be decided at this uncertainty.",
-        source,
-    )
-
-
-def hazen(k_ref_m_per_s: float, hazen_k_m_per_s: float | None, rule: Rule | None) -> Check:
-    """Measured k against the Hazen estimate (advisory) [-].
-
-    Parameters
-    ----------
-    k_ref_m_per_s : float
-        Representative k at the reference temperature [m/s].
-    hazen_k_m_per_s : float or None
-        Hazen's estimate; None when D10 is unknown or outside the formula's range.
-    rule : Rule or None
-        ``ratio_low`` and ``ratio_high``.
-
-    Returns
-    -------
-    Check
-        The ratio k/k_Hazen against its band (docs/methods.md §10.1).
-    """
-    if rule is None:
-        return _na("hazen", "No Hazen rule is set.")
-    if hazen_k_m_per_s is None:
-        low, high = rule.value("d10_min") * 1000, rule.value("d10_max") * 1000
-        return _na("hazen", f"Needs D10 between {low:g} mm and {high:g} mm (clean sands only).")
-    ratio = k_ref_m_per_s / hazen_k_m_per_s
-    low, high = rule.value("ratio_low"), rule.value("ratio_high")
-    limit = high if ratio >= 1 else low
-    if low <= ratio <= high:
-        return _result(
-            rule,
-            PASS,
-            ratio,
-            limit,
-            f"Measured k is {ratio:.3g} times the Hazen estimate {sci(hazen_k_m_per_s)} m/s.",
-        )
-    return _result(
-        rule,
-        rule.failure,
-        ratio,
-        limit,
-        f"Measured k is {ratio:.3g} times the Hazen estimate {sci(hazen_k_m_per_s)} m/s: "
-        "check the gradation, the specimen and the test (advisory only).",
     )
 
 
@@ -950,13 +701,15 @@ def darcy_linearity(
         line (docs/methods.md §8.11).
     """
     if rule is None:
-        return _na("darcy_linearity", "No Darcy-linearity rule is set.")
+        return not_applicable("darcy_linearity", "No Darcy-linearity rule is set.")
     if k_change is None or spread is None or n_gradients < 2:
-        return _na("darcy_linearity", "Needs constant-head runs at two or more gradients.")
+        return not_applicable(
+            "darcy_linearity", "Needs constant-head runs at two or more gradients."
+        )
     band, fall = rule.value("spread"), rule.value("fall")
     needed = round(rule.value("gradients"))
     if spread > band:
-        return _result(
+        return judged(
             rule,
             rule.failure,
             spread,
@@ -965,7 +718,7 @@ def darcy_linearity(
             "range; use the runs on the linear part only.",
         )
     if k_change < -fall:
-        return _result(
+        return judged(
             rule,
             WARN,
             k_change,
@@ -979,7 +732,7 @@ def darcy_linearity(
         if enough
         else f" {_count(needed).capitalize()} gradients are needed to confirm linearity."
     )
-    return _result(
+    return judged(
         rule,
         PASS if enough else WARN,
         spread,

@@ -8,7 +8,7 @@ from dataclasses import asdict, dataclass, field, fields, is_dataclass
 from functools import partial
 from typing import Any
 
-from service.engine import checks, conversions, reductions, water
+from service.engine import checks, compliance, conversions, plausibility, reductions, water
 from service.engine.errors import EngineInputError
 from service.engine.model import (
     TRIAL_NUMBERS,
@@ -526,22 +526,22 @@ def _reduce(ctx: _Context) -> ReductionResult:
             spec.max_particle_size_m,
             spec.retained_on_lower_sieve,
         ),
-        checks.laminar_flow(reynolds, rule_set.rule("laminar_flow")),
+        plausibility.laminar_flow(reynolds, rule_set.rule("laminar_flow")),
         checks.temperature_range(
             [t.temperature_c for t in inp.trials],
             temperature_rule,
             viscosity_given=opts.viscosity_pa_s is not None,
         ),
-        checks.specification(
+        compliance.specification(
             k_mean, inp.k_max_m_per_s, summary.expanded_u_rel, decision_rule, ctx.reference_c
         ),
-        checks.hazen(k_mean, hazen, rule_set.rule("hazen")),
+        plausibility.hazen(k_mean, hazen, rule_set.rule("hazen")),
         checks.darcy_linearity(
             series.k_change if series else None, spread, distinct, rule_set.rule("darcy_linearity")
         ),
         checks.trend(k_used, rule_set.rule("trend")),
         checks.head_change(head_terms, rule_set.rule("head_change")),
-        checks.phase_relations(
+        plausibility.phase_relations(
             phase.degree_of_saturation,
             saturation_u,
             phase.void_ratio,

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import pytest
 
-from service.engine import checks
+from service.engine import plausibility
 from service.engine.rules import BUILT_IN
 from tests.engine.helpers import check, constant_rate, cv1, cv2, cv3, run
 
@@ -268,7 +268,9 @@ def test_d2434_size_table(largest, status, limit_mm):
 def test_laminar_flow_thresholds(re_number, status):
     # Bear (1972) range of Darcy's law (Re < 1, up to about 10; from memory)
     assert (
-        checks.laminar_flow(re_number, BUILT_IN.for_standard(None).rule("laminar_flow")).status
+        plausibility.laminar_flow(
+            re_number, BUILT_IN.for_standard(None).rule("laminar_flow")
+        ).status
         == status
     )
 
