@@ -206,9 +206,18 @@ class RuleBook:
         changed = replace(rule, confirmed=True, source=source if source else rule.source)
         return self._with_rule(rule_set, changed, version)
 
+    def with_set(self, rule_set: RuleSet, *, version: str) -> RuleBook:
+        """Return a copy of the book with ``rule_set`` in place of its standard's set.
+
+        For a laboratory's own defaults (edition, reference temperature, decision rule,
+        number of determinations): ``book.with_set(replace(old, decision_rule="guard_band"),
+        version=...)``.
+        """
+        return RuleBook(version=version, sets={**self.sets, rule_set.standard: rule_set})
+
     def _with_rule(self, rule_set: RuleSet, rule: Rule, version: str) -> RuleBook:
         new_set = replace(rule_set, rules={**rule_set.rules, rule.id: rule})
-        return RuleBook(version=version, sets={**self.sets, rule_set.standard: new_set})
+        return self.with_set(new_set, version=version)
 
 
 def _rules(*rules: Rule) -> dict[str, Rule]:

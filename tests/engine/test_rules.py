@@ -119,6 +119,23 @@ def test_a_laboratory_book_changes_the_outcome_and_is_recorded():
     assert reduced(steady)["rules_version"] == BUILT_IN_VERSION
 
 
+def test_a_laboratory_book_sets_its_own_defaults():
+    # A lab that reads its ISO 17892-11 copy as 20 °C and decides by guarded acceptance
+    from dataclasses import replace
+
+    from service.engine import parse_request, reduce
+
+    iso = replace(
+        BUILT_IN.for_standard(ISO), reference_temperature_c=20.0, decision_rule="guard_band"
+    )
+    lab = BUILT_IN.with_set(iso, version="lab scope 4")
+    result = reduce(parse_request(dict(cv2(), standard=ISO)), lab)
+    assert result.reference_temperature_c == 20.0
+    assert result.decision_rule == "guard_band"
+    assert result.rules_version == "lab scope 4"
+    assert BUILT_IN.for_standard(ISO).reference_temperature_c == 10.0  # the built-in is untouched
+
+
 def test_unknown_limit_is_refused_when_building_a_book():
     with pytest.raises(KeyError):
         BUILT_IN.with_limit("ASTM D5084", "steady_state", "bandwidth", 0.1, version="x")
