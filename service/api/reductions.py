@@ -53,6 +53,13 @@ Quantity = Annotated[
 Dimensionless = Annotated[
     float | str | QuantityObject, Field(description="a number, '18.5 %', or an object")
 ]
+Percentage = Annotated[
+    float | str | QuantityObject,
+    Field(
+        description='\'18.5 %\', or {"value": 0.185, "unit": ""} for a fraction; '
+        "a bare number is refused"
+    ),
+]
 
 
 class _Strict(BaseModel):
@@ -72,13 +79,13 @@ class SpecimenIn(_Strict):
     diameter: Quantity | None = None
     area: Quantity | None = None
     wet_mass: Quantity | None = None
-    water_content: Dimensionless | None = None
+    water_content: Percentage | None = None
     specific_gravity: Dimensionless | None = None
     max_dry_density: Quantity | None = None
     void_ratio: Dimensionless | None = None
     d10: Quantity | None = None
     max_particle_size: Quantity | None = None
-    retained_on_lower_sieve: Dimensionless | None = None
+    retained_on_lower_sieve: Percentage | None = None
     stiff_material: bool | None = None
 
 
@@ -121,6 +128,11 @@ class TrialIn(_Strict):
 
 class SpecificationIn(_Strict):
     k_max: Quantity | None = None
+    decision_rule: Literal["simple", "guard_band"] | None = Field(
+        None,
+        description="ILAC-G8:09/2019 simple acceptance (w = 0) or guarded acceptance (w = U); "
+        "default: the standard's rule set",
+    )
 
 
 class ReductionRequest(_Strict):
@@ -132,6 +144,7 @@ class ReductionRequest(_Strict):
     saturation: list[SaturationIn] | None = None
     trials: list[TrialIn]
     specification: SpecificationIn | None = None
+    permeameter: Literal["flexible_wall", "rigid_wall"] | None = None
 
 
 class TrialOut(BaseModel):
@@ -147,6 +160,7 @@ class TrialOut(BaseModel):
     slope_std_error_rel: float | None
     head_final_m: float | None
     u_contributions: dict[str, float] | None
+    head_term_rel: float | None
 
 
 class ResultOut(BaseModel):
@@ -154,6 +168,11 @@ class ResultOut(BaseModel):
     trials_used: list[int]
     u_rel: float | None
     expanded_u_rel: float | None
+    coverage_factor: float | None
+    effective_degrees_of_freedom: float | None = Field(
+        description="Welch–Satterthwaite ν_eff; null when infinite (no Type A term)"
+    )
+    decision_rule: Literal["simple", "guard_band"]
     intrinsic_permeability_m2: float
     k_ref_cm_per_s: float
     k_ref_m_per_day: float
@@ -202,12 +221,15 @@ class CheckOut(BaseModel):
     limit: float | None
     message: str
     source: str
+    limit_confirmed: bool | None
 
 
 class ReductionResponse(BaseModel):
     engine_version: str
+    rules_version: str
     method: str
     standard: str | None
+    permeameter: Literal["flexible_wall", "rigid_wall"] | None
     reference_temperature_c: float
     temperature_correction: str
     trials: list[TrialOut]
@@ -299,6 +321,7 @@ EXAMPLES: dict[str, dict[str, Any]] = {
                 "max_dry_density": "1.680 g/cm**3",
             },
             "apparatus": {"headwater_area": "0.710 cm**2", "tailwater_area": "0.950 cm**2"},
+            "permeameter": "flexible_wall",
             "saturation": [{"back_pressure": "300 kPa", "b_value": 0.96}],
             "trials": [
                 {
@@ -330,7 +353,7 @@ EXAMPLES: dict[str, dict[str, Any]] = {
                     "temperature": "22.0 degC",
                 },
             ],
-            "specification": {"k_max": "1e-9 m/s"},
+            "specification": {"k_max": "1e-9 m/s", "decision_rule": "guard_band"},
         },
     },
     "constant_rate": {

@@ -3,22 +3,31 @@
 The one public path used by the API and the workflow::
 
     inp = parse_request(payload)        # contract-shaped dict -> validated SI dataclasses
-    res = reduce(inp)                   # -> frozen ReductionResult
+    res = reduce(inp)                   # -> frozen ReductionResult, under the built-in rules
+    res = reduce(inp, rules=lab_book)   # ... or under a laboratory's own RuleBook
     body = result_to_dict(res)          # -> the contract's response JSON
+
+Methods, rules and sources: docs/methods.md.
 """
 
 from service.engine.errors import EngineInputError, InputProblem
 from service.engine.model import ReductionInput, ReductionResult
 from service.engine.parse import parse_request
 from service.engine.pipeline import reduce, result_to_dict
+from service.engine.rules import BUILT_IN, Limit, Rule, RuleBook, RuleSet
 from service.engine.version import ENGINE_VERSION
 
 __all__ = [
+    "BUILT_IN",
     "ENGINE_VERSION",
     "EngineInputError",
     "InputProblem",
+    "Limit",
     "ReductionInput",
     "ReductionResult",
+    "Rule",
+    "RuleBook",
+    "RuleSet",
     "parse_request",
     "reduce",
     "result_to_dict",

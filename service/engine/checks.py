@@ -1,96 +1,52 @@
-"""Acceptance, plausibility and compliance checks, each with its measured value, limit and source.
+"""Acceptance checks of the test's standard, each with its measured value, limit and source.
 
-Statuses: ``pass``, ``warn``, ``fail``, ``not_applicable``. Rules the domain reference
-marks as recalled rather than read carry '[from memory]' in their source text.
+Plausibility checks are in :mod:`service.engine.plausibility`, the specification limit in
+:mod:`service.engine.compliance`; all report a :class:`Check`.
+
+Statuses: ``pass``, ``warn``, ``fail``, ``not_applicable``. Each check takes the :class:`Rule`
+of the test's rule set (docs/methods.md §7–§8); a check whose rule set has no rule for it is
+not applicable. Messages are written for the people who read them: figures with units and
+sensible precision, never an internal note.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+
+from service.engine.rules import FLEXIBLE_WALL, RIGID_WALL, Rule
+from service.engine.uncertainty import student_t_quantile
 
 PASS = "pass"
 WARN = "warn"
 FAIL = "fail"
 NOT_APPLICABLE = "not_applicable"
 
-D5084 = "ASTM D5084"
-D2434 = "ASTM D2434"
-D5856 = "ASTM D5856"
-ISO = "ISO 17892-11"
-STANDARDS = (D5084, D2434, D5856, ISO)
-
-CHECK_IDS = (
-    "steady_state",
-    "flow_ratio",
-    "gradient_limit",
-    "saturation",
-    "specimen_size",
-    "laminar_flow",
-    "temperature_range",
-    "specification",
-    "hazen",
-    "darcy_linearity",
-)
-
-SOURCES = {
-    "steady_state_d5084": (
-        "ASTM D5084 termination criteria: at least four consecutive determinations, each "
-        "within ±25 % of their mean (±50 % below 1e-10 m/s) [from memory; verify against "
-        "the edition in use]"
-    ),
-    "steady_state_rigid": (
-        "ASTM D5856 §4.4: k at three gradients within 25 % (read); applied to ASTM D2434 "
-        "runs as common practice"
-    ),
-    "steady_state_general": (
-        "Repeated determinations within ±25 % of their mean: common practice, no source"
-    ),
-    "flow_ratio": (
-        "ASTM D5084 termination criteria: outflow/inflow between 0.75 and 1.25 [from memory]"
-    ),
-    "gradient_d5084": (
-        "ASTM D5084 table of recommended maximum hydraulic gradient by k [from memory; verify]"
-    ),
-    "gradient_d2434": (
-        "ASTM D2434-68 note: laminar flow needs gradients of about 0.2 to 0.5 [from memory; verify]"
-    ),
-    "saturation": (
-        "ASTM D5084: B ≥ 0.95, or for stiff materials a B that no longer changes as back "
-        "pressure rises [from memory; verify clause]; change tolerance 0.01 common practice"
-    ),
-    "specimen_size_d2434": (
-        "ASTM D2434-68 Table 1, minimum permeameter diameter by maximum particle size "
-        "(8 or 12 times; table values [from memory])"
-    ),
-    "specimen_size_d5084": (
-        "ASTM D5084: diameter and height at least 25 mm, largest particle at most 1/6 of the "
-        "diameter [from memory, lower confidence]"
-    ),
-    "laminar_flow": (
-        "Darcy's law holds for Re < 1 and often up to Re ≈ 10: Bear (1972), Freeze & Cherry "
-        "(1979) [from memory]; pass/warn/fail thresholds common practice; d = D10"
-    ),
-    "temperature_range": "ASTM D5084 scope: tests between about 15 °C and 30 °C (read)",
-    "temperature_missing": "Temperature correction by the viscosity ratio (domain-reference §4.1)",
-    "specification": (
-        "Project specification limit, compared with the mean of the accepted determinations "
-        "(common practice, no source)"
-    ),
-    "hazen": (
-        "Hazen: k (cm/s) ≈ 100·D10² (D10 in cm) for clean filter sands, 0.1 mm ≤ D10 ≤ 3 mm: "
-        "Carrier (2003), J. Geotech. Geoenviron. Eng. 129(11):1054; 0.1–10 band common practice"
-    ),
-    "darcy_linearity": (
-        "ASTM D5856 §4.4: Darcy's law valid if k at three gradients agrees within 25 % (read); "
-        "a fall of k by more than 10 % as the gradient rises flagged as common practice"
-    ),
-}
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+_COUNT_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six"}
 
 
 @dataclass(frozen=True, slots=True)
 class Check:
-    """Outcome of one rule."""
+    """Outcome of one rule.
+
+    Attributes
+    ----------
+    id : str
+        Check id (``"steady_state"``).
+    status : {"pass", "warn", "fail", "not_applicable"}
+        Outcome.
+    measured, limit : float or None
+        The figure judged and the limit it was judged against [the check's unit].
+    message : str
+        What was found, for the people who read the result.
+    source : str
+        The document and clause of the rule; empty when not applicable.
+    limit_confirmed : bool or None
+        Whether the laboratory confirmed the rule's limits (docs/methods.md §7.1); None when
+        no rule of a standard was applied.
+    """
 
     id: str
     status: str
@@ -98,214 +54,424 @@ class Check:
     limit: float | None
     message: str
     source: str
+    limit_confirmed: bool | None = None
 
 
-def _na(check_id: str, message: str) -> Check:
+def sci(value: float, digits: int = 3) -> str:
+    """Format a number in scientific notation for people: ``1.76 × 10⁻⁹`` (``digits`` figures)."""
+    mantissa, exponent = f"{value:.{digits - 1}e}".split("e")
+    power = int(exponent)
+    if power == 0:
+        return mantissa
+    return f"{mantissa} × 10{str(power).translate(_SUPERSCRIPT)}"
+
+
+def pct(fraction: float, decimals: int = 1, *, sign: bool = False) -> str:
+    """Format a fraction as a percentage for people: ``0.143`` → ``14.3 %`` (``−28.6 %``)."""
+    text = f"{fraction * 100:{'+' if sign else ''}.{decimals}f} %"
+    return text.replace("-", "−")
+
+
+def distinct(*values: float, digits: int = 3) -> list[str]:
+    """Format values with :func:`sci` to the fewest digits that tell apart those that differ.
+
+    At least ``digits`` significant figures; more until every pair of different values reads
+    differently (docs/methods.md §9).
+    """
+    for n in range(digits, 18):
+        shown = [sci(v, n) for v in values]
+        if all(
+            (shown[i] != shown[j]) or values[i] == values[j]
+            for i in range(len(values))
+            for j in range(i + 1, len(values))
+        ):
+            return shown
+    return [repr(v) for v in values]
+
+
+def _count(n: int) -> str:
+    return _COUNT_WORDS.get(n, str(n))
+
+
+def not_applicable(check_id: str, message: str) -> Check:
+    """Report a check that cannot be judged (no rule, or not enough entries)."""
     return Check(check_id, NOT_APPLICABLE, None, None, message, "")
 
 
-def steady_state(k_values: Sequence[float], standard: str | None) -> Check:
-    """Repeatability of the determinations of k_ref [m/s].
+def judged(
+    rule: Rule, status: str, measured: float | None, limit: float | None, message: str
+) -> Check:
+    """Report a check judged by ``rule``, with its source and confirmation."""
+    return Check(rule.id, status, measured, limit, message, rule.source, rule.confirmed)
 
-    Notes
-    -----
-    ASTM D5084: last four within ±25 % of their mean (±50 % when the mean is below
-    1e-10 m/s) [memory]. ASTM D2434/D5856: all runs, at least three, within 25 %.
-    Otherwise ±25 % advisory. Source: domain-reference §6.1.3, §6.2.
+
+def _has(rule: Rule, limit_id: str) -> bool:
+    return any(item.id == limit_id for item in rule.limits)
+
+
+def steady_state(
+    k_values: Sequence[float], rule: Rule | None, determinations: int, last_only: bool
+) -> Check:
+    """Repeatability of the determinations of k_ref [-].
+
+    Parameters
+    ----------
+    k_values : sequence of float
+        k_ref of every trial in order [m/s].
+    rule : Rule or None
+        ``band`` (and, for ASTM D5084, ``band_low_k`` below ``low_k``).
+    determinations : int
+        Number of determinations the rule set needs.
+    last_only : bool
+        Judge the last ``determinations`` trials (ASTM D5084), else all trials.
+
+    Returns
+    -------
+    Check
+        Largest |k_j/k̄ − 1| against the band (docs/methods.md §8.1).
     """
+    if rule is None:
+        return not_applicable("steady_state", "No repeatability rule is set for this standard.")
     n = len(k_values)
-    if standard == D5084:
-        if n < 4:
-            return Check(
-                "steady_state",
-                FAIL,
+    if last_only:
+        if n < determinations:
+            return judged(
+                rule,
+                rule.failure,
                 float(n),
-                4.0,
-                f"ASTM D5084 needs at least four consecutive determinations; {n} given.",
-                SOURCES["steady_state_d5084"],
+                float(determinations),
+                f"At least {_count(determinations)} consecutive determinations are needed; "
+                f"{n} given.",
             )
-        last = list(k_values[-4:])
-        source = SOURCES["steady_state_d5084"]
-        fail_status = FAIL
-        what = "last four determinations"
+        window = list(k_values[-determinations:])
+        what = f"last {_count(determinations)} determinations"
     else:
         if n < 2:
-            return _na("steady_state", "A single determination: repeatability cannot be judged.")
-        last = list(k_values)
-        rigid = standard in (D2434, D5856)
-        source = SOURCES["steady_state_rigid"] if rigid else SOURCES["steady_state_general"]
-        fail_status = FAIL if rigid else WARN
-        what = "determinations"
-        if rigid and n < 3:
-            return Check(
-                "steady_state",
+            return not_applicable(
+                "steady_state", "A single determination: repeatability cannot be judged."
+            )
+        if n < determinations:
+            return judged(
+                rule,
                 WARN,
                 float(n),
-                3.0,
-                f"{standard}: at least three runs are expected; {n} given.",
-                source,
+                float(determinations),
+                f"At least {_count(determinations)} determinations are expected; {n} given.",
             )
-    mean = sum(last) / len(last)
-    band = 0.50 if (standard == D5084 and mean < 1e-10) else 0.25
-    deviation = max(abs(k / mean - 1.0) for k in last)
-    ok = deviation <= band
-    message = (
-        f"The {what} lie within {deviation:.1%} of their mean {mean:.3g} m/s (limit ±{band:.0%})."
-        if ok
-        else f"One of the {what} is {deviation:.1%} from their mean {mean:.3g} m/s, "
-        f"outside ±{band:.0%}: the test has not reached a steady state."
+        window = list(k_values)
+        what = "determinations"
+    mean = sum(window) / len(window)
+    band = rule.value("band")
+    if _has(rule, "band_low_k") and mean < rule.value("low_k"):
+        band = rule.value("band_low_k")
+    deviation = max(abs(k / mean - 1.0) for k in window)
+    if deviation <= band:
+        return judged(
+            rule,
+            PASS,
+            deviation,
+            band,
+            f"The {what} lie within {pct(deviation, 1)} of their mean {sci(mean)} m/s "
+            f"(limit ±{pct(band, 0)}).",
+        )
+    return judged(
+        rule,
+        rule.failure,
+        deviation,
+        band,
+        f"One of the {what} is {pct(deviation, 1)} from their mean {sci(mean)} m/s, outside "
+        f"±{pct(band, 0)}: the test has not reached a steady state.",
     )
-    return Check("steady_state", PASS if ok else fail_status, deviation, band, message, source)
 
 
-def flow_ratio(ratios: Sequence[float | None], standard: str | None) -> Check:
+def trend(k_values: Sequence[float], rule: Rule | None) -> Check:
+    """Upward or downward trend of the accepted determinations [-].
+
+    Parameters
+    ----------
+    k_values : sequence of float
+        k_ref of the accepted determinations in the order they were made [m/s].
+    rule : Rule or None
+        ``significance`` (two-sided level of the slope test) and ``max_change``.
+
+    Returns
+    -------
+    Check
+        Measured: the fitted change of k over the determinations relative to their mean,
+        b·(n − 1)/k̄. Fail (or the rule's status) when the least-squares slope b of k on the
+        determination number differs from zero at the ``significance`` level (t-test with
+        n − 2 degrees of freedom); warn when it is not significant but the fitted change
+        exceeds ``max_change`` (docs/methods.md §8.2).
+    """
+    if rule is None:
+        return not_applicable("trend", "No trend rule is set for this standard.")
+    n = len(k_values)
+    if n < 3:
+        return not_applicable("trend", "Needs three or more determinations to judge a trend.")
+    xs = range(n)
+    x_mean = (n - 1) / 2.0
+    mean = sum(k_values) / n
+    s_xx = sum((x - x_mean) ** 2 for x in xs)
+    slope = sum((x - x_mean) * (k - mean) for x, k in zip(xs, k_values, strict=True)) / s_xx
+    residual = sum(
+        (k - mean - slope * (x - x_mean)) ** 2 for x, k in zip(xs, k_values, strict=True)
+    )
+    error = math.sqrt(residual / (n - 2) / s_xx)
+    change = slope * (n - 1) / mean
+    alpha = rule.value("significance")
+    critical = student_t_quantile(1.0 - alpha, n - 2)
+    direction = "falls" if slope < 0 else "rises"
+    limit = rule.value("max_change")
+    if error <= 1e-12 * abs(mean):
+        statistic = math.inf if slope != 0.0 else 0.0
+        shown = "a straight line"
+    else:
+        statistic = abs(slope) / error
+        shown = f"t = {statistic:.2f}"
+    if statistic > critical:
+        return judged(
+            rule,
+            rule.failure,
+            change,
+            limit,
+            f"k {direction} steadily over the {_count(n)} determinations (fitted change "
+            f"{pct(change, 1, sign=True)}; {shown}, above the {critical:.2f} of a two-sided "
+            f"test at {pct(alpha, 0)}): the test has not reached a steady state.",
+        )
+    if abs(change) > limit:
+        return judged(
+            rule,
+            WARN,
+            change,
+            limit,
+            f"k {direction} by {pct(abs(change), 1)} over the {_count(n)} determinations; the "
+            f"slope is not significant at {pct(alpha, 0)} ({shown}, critical {critical:.2f}) "
+            f"but the change exceeds ±{pct(limit, 0)}: look at k against time before accepting.",
+        )
+    return judged(
+        rule,
+        PASS,
+        change,
+        limit,
+        f"No significant trend: fitted change {pct(change, 1, sign=True)} over the {_count(n)} "
+        f"determinations ({shown}, critical {critical:.2f}).",
+    )
+
+
+def flow_ratio(ratios: Sequence[float | None], rule: Rule | None) -> Check:
     """Outflow/inflow volume ratio of the trials that measured both [-].
 
-    Notes
-    -----
-    Accept 0.75 ≤ V_out/V_in ≤ 1.25 (ASTM D5084 termination criteria, memory;
-    domain-reference §6.1.3). A failure under D5084, a warning otherwise.
+    Parameters
+    ----------
+    ratios : sequence of float or None
+        V_out/V_in of the accepted trials (None where not measured).
+    rule : Rule or None
+        ``low`` and ``high``.
+
+    Returns
+    -------
+    Check
+        The ratio furthest from 1 against low ≤ V_out/V_in ≤ high (docs/methods.md §8.3).
     """
+    if rule is None:
+        return not_applicable("flow_ratio", "No flow-balance rule is set for this standard.")
     known = [r for r in ratios if r is not None]
     if not known:
-        return _na("flow_ratio", "No trial gives both inflow and outflow volumes.")
+        return not_applicable("flow_ratio", "No trial gives both inflow and outflow volumes.")
+    low, high = rule.value("low"), rule.value("high")
     worst = max(known, key=lambda r: abs(r - 1.0))
-    ok = all(0.75 <= r <= 1.25 for r in known)
-    limit = 1.25 if worst >= 1.0 else 0.75
-    if ok:
-        message = f"Outflow/inflow ratios lie between 0.75 and 1.25 (furthest from 1: {worst:.3f})."
-        status = PASS
-    else:
-        message = (
-            f"An outflow/inflow ratio of {worst:.3f} lies outside 0.75–1.25: look for leaks, "
-            "air or volume change of the specimen."
+    limit = high if worst >= 1.0 else low
+    if all(low <= r <= high for r in known):
+        return judged(
+            rule,
+            PASS,
+            worst,
+            limit,
+            f"Outflow/inflow ratios lie between {low:g} and {high:g} "
+            f"(furthest from 1: {worst:.3f}).",
         )
-        status = FAIL if standard == D5084 else WARN
-    return Check("flow_ratio", status, worst, limit, message, SOURCES["flow_ratio"])
+    return judged(
+        rule,
+        rule.failure,
+        worst,
+        limit,
+        f"An outflow/inflow ratio of {worst:.3f} lies outside {low:g}–{high:g}: look for leaks, "
+        "air or volume change of the specimen.",
+    )
 
 
-def d5084_max_gradient(k_m_per_s: float) -> float:
-    """Recommended maximum hydraulic gradient for a given k [-] (ASTM D5084 table, memory).
+def max_gradient_for(k_m_per_s: float, rule: Rule) -> float:
+    """Recommended maximum hydraulic gradient for a given k from a table rule [-].
 
-    Notes
-    -----
-    1e-5 to 1e-6 m/s: 2; 1e-6 to 1e-7: 5; 1e-7 to 1e-8: 10; 1e-8 to 1e-9: 20; below 1e-9: 30
-    (domain-reference §6.1.2).
+    Parameters
+    ----------
+    k_m_per_s : float
+        k at the reference temperature [m/s].
+    rule : Rule
+        ``k_1`` … ``k_4`` (row lower bounds, falling) and ``gradient_1`` … ``gradient_5``.
+
+    Returns
+    -------
+    float
+        The gradient of the first row whose lower bound k reaches; ``gradient_5`` below
+        ``k_4`` (docs/methods.md §8.4).
     """
-    if k_m_per_s >= 1e-6:
-        return 2.0
-    if k_m_per_s >= 1e-7:
-        return 5.0
-    if k_m_per_s >= 1e-8:
-        return 10.0
-    if k_m_per_s >= 1e-9:
-        return 20.0
-    return 30.0
+    row = 1
+    while _has(rule, f"k_{row}"):
+        if k_m_per_s >= rule.value(f"k_{row}"):
+            return rule.value(f"gradient_{row}")
+        row += 1
+    return rule.value(f"gradient_{row}")
 
 
-def gradient_limit(k_ref_m_per_s: float, max_gradient: float, standard: str | None) -> Check:
+def gradient_limit(k_ref_m_per_s: float, max_gradient: float, rule: Rule | None) -> Check:
     """Largest gradient used against the standard's recommendation [-].
 
-    Notes
-    -----
-    ASTM D5084: table of domain-reference §6.1.2 by k₂₀, a warning (recommendation).
-    ASTM D2434: about 0.5 at most for laminar flow (§2.3, memory), a warning.
+    Parameters
+    ----------
+    k_ref_m_per_s : float
+        Representative k at the reference temperature [m/s].
+    max_gradient : float
+        Largest gradient of the accepted trials (falling head: the initial one) [-].
+    rule : Rule or None
+        A table by k (ASTM D5084) or one ``gradient_max`` (ASTM D2434).
+
+    Returns
+    -------
+    Check
+        docs/methods.md §8.4.
     """
-    if standard == D5084:
-        limit = d5084_max_gradient(k_ref_m_per_s)
-        beyond = " (k is above the D5084 range)" if k_ref_m_per_s > 1e-5 else ""
-        source = SOURCES["gradient_d5084"]
-    elif standard == D2434:
-        limit = 0.5
+    if rule is None:
+        return not_applicable("gradient_limit", "No gradient limit is set for this standard.")
+    if _has(rule, "gradient_max"):
+        limit = rule.value("gradient_max")
         beyond = ""
-        source = SOURCES["gradient_d2434"]
     else:
-        return _na("gradient_limit", "No gradient limit is set for this standard.")
-    if max_gradient <= limit:
-        message = (
-            f"The largest gradient, {max_gradient:.3g}, is within the recommended "
-            f"{limit:g}{beyond}."
+        limit = max_gradient_for(k_ref_m_per_s, rule)
+        beyond = (
+            " (k is above the range of the table)" if k_ref_m_per_s > rule.value("k_max") else ""
         )
-        return Check("gradient_limit", PASS, max_gradient, limit, message, source)
-    message = (
+    if max_gradient <= limit:
+        return judged(
+            rule,
+            PASS,
+            max_gradient,
+            limit,
+            f"The largest gradient, {max_gradient:.3g}, is within the recommended {limit:g}"
+            f"{beyond}.",
+        )
+    return judged(
+        rule,
+        rule.failure,
+        max_gradient,
+        limit,
         f"The largest gradient, {max_gradient:.3g}, exceeds the recommended {limit:g} for "
-        f"k = {k_ref_m_per_s:.3g} m/s{beyond}: consolidation or seepage forces may bias k."
+        f"k = {sci(k_ref_m_per_s)} m/s{beyond}: consolidation or seepage forces may bias k.",
     )
-    return Check("gradient_limit", WARN, max_gradient, limit, message, source)
 
 
 def saturation(
-    b_values: Sequence[float], stiff_material: bool, standard: str | None, tolerance: float = 0.01
+    b_values: Sequence[float], stiff_material: bool, rule: Rule | None, permeameter: str | None
 ) -> Check:
     """Degree of saturation from the B-value series [-].
 
-    Notes
-    -----
-    Pass if the last B ≥ 0.95; for a declared stiff material, a conditional pass (warning)
-    if B changed by at most ``tolerance`` over the last back-pressure step; otherwise fail.
-    Source: ASTM D5084 (memory), domain-reference §6.1.1.
+    Parameters
+    ----------
+    b_values : sequence of float
+        B-values in the order measured.
+    stiff_material : bool
+        The material is declared stiff (a B that stops changing may be accepted).
+    rule : Rule or None
+        ``b_min`` and ``b_change``.
+    permeameter : {"flexible_wall", "rigid_wall"} or None
+        The permeameter used (or the rule set's assumption).
+
+    Returns
+    -------
+    Check
+        Pass if the last B ≥ b_min; for a declared stiff material a conditional pass (warn)
+        if B changed by at most b_change over the last step; no record on a flexible-wall
+        test, or a low B, gives the rule's status; a rigid wall is not applicable
+        (docs/methods.md §8.5).
     """
-    source = SOURCES["saturation"]
+    if rule is None:
+        return not_applicable("saturation", "No saturation rule is set for this standard.")
+    if permeameter == RIGID_WALL:
+        return not_applicable("saturation", "Rigid-wall permeameter: no B-value check applies.")
+    b_min = rule.value("b_min")
     if not b_values:
-        if standard == D5084:
-            return Check(
-                "saturation",
-                WARN,
+        if permeameter == FLEXIBLE_WALL:
+            return judged(
+                rule,
+                rule.failure,
                 None,
-                0.95,
-                "No B-value was recorded; ASTM D5084 requires a saturation check.",
-                source,
+                b_min,
+                "No B-value was recorded: a flexible-wall test needs a saturation check.",
             )
-        return _na("saturation", "No B-value was recorded.")
+        return not_applicable("saturation", "No B-value was recorded.")
     last = b_values[-1]
-    if last >= 0.95:
-        return Check("saturation", PASS, last, 0.95, f"B = {last:.2f} reaches 0.95.", source)
+    if last >= b_min:
+        return judged(rule, PASS, last, b_min, f"B = {last:.2f} reaches {b_min:.2f}.")
     if stiff_material and len(b_values) >= 2:
         change = abs(last - b_values[-2])
-        if change <= tolerance:
-            return Check(
-                "saturation",
+        if change <= rule.value("b_change"):
+            return judged(
+                rule,
                 WARN,
                 last,
-                0.95,
-                f"Conditional pass: B = {last:.2f} is below 0.95 but changed by only "
+                b_min,
+                f"Conditional pass: B = {last:.2f} is below {b_min:.2f} but changed by only "
                 f"{change:.3f} with the last back-pressure step, on a material declared stiff.",
-                source,
             )
     hint = (
         ""
         if stiff_material
         else " (the stiff-material allowance needs the material declared stiff)"
     )
-    return Check(
-        "saturation",
-        FAIL,
+    return judged(
+        rule,
+        rule.failure,
         last,
-        0.95,
-        f"B = {last:.2f} is below 0.95: the specimen is not shown to be saturated{hint}.",
-        source,
+        b_min,
+        f"B = {last:.2f} is below {b_min:.2f}: the specimen is not shown to be saturated{hint}.",
     )
 
 
-def d2434_min_diameter(max_particle_m: float, retained_fraction: float | None) -> float | None:
-    """Minimum permeameter diameter of ASTM D2434-68 Table 1 [m], or None beyond 19 mm.
+def table_min_diameter(
+    max_particle_m: float, retained_fraction: float | None, rule: Rule
+) -> tuple[float | None, bool]:
+    """Minimum permeameter diameter from a two-row size table such as ASTM D2434 Table 1 [m].
 
-    Notes
-    -----
-    Up to 9.5 mm: 76 mm if < 35 % retained on 2.00 mm, else 114 mm; 9.5–19.0 mm: 152 mm
-    if < 35 % retained on 9.5 mm, else 229 mm. Retained unknown: the larger. Table values
-    from memory (domain-reference §6.2). Below 2.00 mm the first row is applied.
+    Parameters
+    ----------
+    max_particle_m : float
+        Largest particle size [m].
+    retained_fraction : float or None
+        Fraction of the soil retained on the row's lower sieve [-]; None when not known.
+    rule : Rule
+        ``fine_sieve``, ``row1_max``, ``row2_max``, ``retained`` and the four diameters.
+
+    Returns
+    -------
+    (diameter, assumed) : tuple of float or None and bool
+        The minimum diameter (None beyond the table) and whether the wider column was
+        assumed for want of the retained fraction. A largest particle below the first
+        row's lower sieve leaves nothing retained on it: the narrower column applies
+        (docs/methods.md §8.6).
     """
-    coarse = retained_fraction is None or retained_fraction >= 0.35
-    if max_particle_m <= 0.0095:
-        return 0.114 if coarse else 0.076
-    if max_particle_m <= 0.019:
-        return 0.229 if coarse else 0.152
-    return None
+    if max_particle_m < rule.value("fine_sieve"):
+        return rule.value("row1_narrow"), False
+    for row in ("row1", "row2"):
+        if max_particle_m <= rule.value(f"{row}_max"):
+            if retained_fraction is None:
+                return rule.value(f"{row}_wide"), True
+            wide = retained_fraction >= rule.value("retained")
+            return rule.value(f"{row}_wide" if wide else f"{row}_narrow"), False
+    return None, False
 
 
 def specimen_size(
-    standard: str | None,
+    rule: Rule | None,
     diameter_m: float | None,
     length_m: float | None,
     max_particle_m: float | None,
@@ -313,143 +479,135 @@ def specimen_size(
 ) -> Check:
     """Specimen or permeameter size against the largest particle.
 
-    Notes
-    -----
-    ASTM D2434-68 Table 1 (memory); ASTM D5084 25 mm minimum and 1/6 rule (memory).
-    Source: domain-reference §6.1.5 and §6.2.
+    Parameters
+    ----------
+    rule : Rule or None
+        A size table (ASTM D2434) or ``min_dimension`` / ``min_ratio`` limits.
+    diameter_m, length_m : float or None
+        Specimen diameter and height [m].
+    max_particle_m : float or None
+        Largest particle size [m].
+    retained_fraction : float or None
+        Fraction retained on the table row's lower sieve [-].
+
+    Returns
+    -------
+    Check
+        docs/methods.md §8.6.
     """
-    if standard == D2434:
-        source = SOURCES["specimen_size_d2434"]
-        if diameter_m is None or max_particle_m is None:
-            return _na(
-                "specimen_size", "Needs the specimen diameter and the maximum particle size."
+    if rule is None:
+        return not_applicable("specimen_size", "No specimen-size rule is set for this standard.")
+    if _has(rule, "row1_narrow"):
+        return _size_table(rule, diameter_m, max_particle_m, retained_fraction)
+    if diameter_m is None or (length_m is None and _has(rule, "min_dimension")):
+        return not_applicable("specimen_size", "Needs the specimen diameter and height.")
+    if _has(rule, "min_dimension") and length_m is not None:
+        smallest = min(diameter_m, length_m)
+        floor = rule.value("min_dimension")
+        if smallest < floor:
+            return judged(
+                rule,
+                rule.failure,
+                smallest * 1000,
+                floor * 1000,
+                f"The specimen's smallest dimension, {smallest * 1000:.1f} mm, is below "
+                f"{floor * 1000:g} mm.",
             )
-        need = d2434_min_diameter(max_particle_m, retained_fraction)
-        if need is None:
-            return Check(
-                "specimen_size",
-                FAIL,
-                max_particle_m * 1000,
-                19.0,
-                f"Maximum particle size {max_particle_m * 1000:.1f} mm exceeds 19 mm: "
-                "remove and record the coarser particles before testing.",
-                source,
-            )
-        assumed = (
-            " (retained percentage not given: the stricter column assumed)"
-            if retained_fraction is None
-            else ""
+    if max_particle_m is None:
+        if not _has(rule, "min_dimension"):
+            return not_applicable("specimen_size", "Needs the largest particle size.")
+        return judged(
+            rule,
+            PASS,
+            min(diameter_m, length_m or diameter_m) * 1000,
+            rule.value("min_dimension") * 1000,
+            f"Smallest dimension {min(diameter_m, length_m or diameter_m) * 1000:.1f} mm is at "
+            f"least {rule.value('min_dimension') * 1000:g} mm (largest particle not given).",
         )
-        measured = diameter_m * 1000
-        if diameter_m + 1e-12 >= need:
-            return Check(
-                "specimen_size",
-                PASS,
-                measured,
-                need * 1000,
-                f"Permeameter diameter {measured:.0f} mm meets the {need * 1000:.0f} mm "
-                f"minimum{assumed}.",
-                source,
-            )
-        return Check(
-            "specimen_size",
-            WARN if retained_fraction is None else FAIL,
+    ratio = diameter_m / max_particle_m
+    need = rule.value("min_ratio")
+    if ratio < need:
+        return judged(
+            rule,
+            rule.failure,
+            ratio,
+            need,
+            f"Diameter is {ratio:.1f} times the largest particle; at least {need:g} needed.",
+        )
+    return judged(
+        rule,
+        PASS,
+        ratio,
+        need,
+        f"Diameter is {ratio:.1f} times the largest particle (at least {need:g} needed).",
+    )
+
+
+def _size_table(
+    rule: Rule,
+    diameter_m: float | None,
+    max_particle_m: float | None,
+    retained_fraction: float | None,
+) -> Check:
+    if diameter_m is None or max_particle_m is None:
+        return not_applicable(
+            "specimen_size", "Needs the specimen diameter and the maximum particle size."
+        )
+    need, assumed = table_min_diameter(max_particle_m, retained_fraction, rule)
+    largest = rule.value("row2_max")
+    if need is None:
+        return judged(
+            rule,
+            rule.failure,
+            max_particle_m * 1000,
+            largest * 1000,
+            f"Maximum particle size {max_particle_m * 1000:.1f} mm exceeds "
+            f"{largest * 1000:g} mm: remove and record the coarser particles before testing.",
+        )
+    note = " (retained percentage not given: the stricter column assumed)" if assumed else ""
+    measured = diameter_m * 1000
+    if diameter_m + 1e-12 >= need:
+        return judged(
+            rule,
+            PASS,
             measured,
             need * 1000,
-            f"Permeameter diameter {measured:.0f} mm is below the {need * 1000:.0f} mm minimum "
-            f"for a {max_particle_m * 1000:.1f} mm maximum particle size{assumed}.",
-            source,
+            f"Permeameter diameter {measured:.0f} mm meets the {need * 1000:.0f} mm minimum{note}.",
         )
-    if standard == D5084:
-        source = SOURCES["specimen_size_d5084"]
-        if diameter_m is None or length_m is None:
-            return _na("specimen_size", "Needs the specimen diameter and height.")
-        smallest = min(diameter_m, length_m) * 1000
-        if smallest < 25.0:
-            return Check(
-                "specimen_size",
-                FAIL,
-                smallest,
-                25.0,
-                f"The specimen's smallest dimension, {smallest:.1f} mm, is below 25 mm.",
-                source,
-            )
-        if max_particle_m is not None:
-            ratio = diameter_m / max_particle_m
-            if ratio < 6.0:
-                return Check(
-                    "specimen_size",
-                    FAIL,
-                    ratio,
-                    6.0,
-                    f"Diameter is {ratio:.1f} times the largest particle; at least 6 needed.",
-                    source,
-                )
-            return Check(
-                "specimen_size",
-                PASS,
-                ratio,
-                6.0,
-                f"Diameter is {ratio:.1f} times the largest particle and dimensions are ≥ 25 mm.",
-                source,
-            )
-        return Check(
-            "specimen_size",
-            PASS,
-            smallest,
-            25.0,
-            f"Smallest dimension {smallest:.1f} mm ≥ 25 mm (largest particle not given).",
-            source,
-        )
-    return _na("specimen_size", "No specimen-size rule is set for this standard.")
-
-
-def laminar_flow(reynolds: float | None) -> Check:
-    """Reynolds-number check of laminar (Darcy) flow [-].
-
-    Notes
-    -----
-    Pass Re < 1, warn 1 ≤ Re < 10, fail Re ≥ 10 (domain-reference §2.4).
-    """
-    if reynolds is None:
-        return _na("laminar_flow", "Needs D10 of the soil to compute a Reynolds number.")
-    source = SOURCES["laminar_flow"]
-    if reynolds < 1.0:
-        return Check(
-            "laminar_flow", PASS, reynolds, 1.0, f"Re = {reynolds:.3g} < 1: laminar flow.", source
-        )
-    if reynolds < 10.0:
-        return Check(
-            "laminar_flow",
-            WARN,
-            reynolds,
-            1.0,
-            f"Re = {reynolds:.3g} lies between 1 and 10: Darcy's law may start to fail.",
-            source,
-        )
-    return Check(
-        "laminar_flow",
-        FAIL,
-        reynolds,
-        10.0,
-        f"Re = {reynolds:.3g} ≥ 10: flow is not laminar; k from this test is not a Darcy k.",
-        source,
+    return judged(
+        rule,
+        WARN if assumed else rule.failure,
+        measured,
+        need * 1000,
+        f"Permeameter diameter {measured:.0f} mm is below the {need * 1000:.0f} mm minimum for "
+        f"a {max_particle_m * 1000:.1f} mm maximum particle size{note}.",
     )
 
 
 def temperature_range(
-    temperatures_c: Sequence[float | None], standard: str | None, correction: str
+    temperatures_c: Sequence[float | None], rule: Rule | None, viscosity_given: bool
 ) -> Check:
-    """Test temperatures against the 15–30 °C range of ASTM D5084 [°C].
+    """Test temperatures against a range such as 15–30 °C of ASTM D5084 [°C].
 
-    Notes
-    -----
-    Missing temperatures: no correction made (factor 1), a warning. Outside 15–30 °C: a
-    warning under ASTM D5084 or with its R_T formula. Source: D5084 scope (read).
+    Parameters
+    ----------
+    temperatures_c : sequence of float or None
+        Temperature of each trial [°C]; None where not recorded.
+    rule : Rule or None
+        ``low`` and ``high``.
+    viscosity_given : bool
+        The request states the water viscosity, so the correction needs no temperature.
+
+    Returns
+    -------
+    Check
+        A missing temperature (without a stated viscosity) is a warning: k was not
+        corrected. Otherwise the coldest or warmest trial against the range
+        (docs/methods.md §8.8).
     """
     missing = [j for j, t in enumerate(temperatures_c) if t is None]
-    if missing:
-        which = ", ".join(str(j) for j in missing)
+    if missing and not viscosity_given:
+        which = ", ".join(str(j + 1) for j in missing)
         return Check(
             "temperature_range",
             WARN,
@@ -457,99 +615,71 @@ def temperature_range(
             None,
             f"No temperature for trial(s) {which}: k was not corrected to the reference "
             "temperature.",
-            SOURCES["temperature_missing"],
+            "Temperature correction by the viscosity ratio of water",
         )
     temps = [t for t in temperatures_c if t is not None]
-    if not temps:
-        return _na("temperature_range", "No trials.")
-    if standard != D5084 and correction != "astm_d5084":
-        return _na("temperature_range", "No temperature range is set for this standard.")
-    worst = max(temps, key=lambda t: max(15.0 - t, t - 30.0))
-    limit = 15.0 if worst < 15.0 else 30.0
-    if all(15.0 <= t <= 30.0 for t in temps):
-        return Check(
-            "temperature_range",
+    if rule is None or not temps:
+        return not_applicable("temperature_range", "No temperature range is set for this standard.")
+    low, high = rule.value("low"), rule.value("high")
+    worst = max(temps, key=lambda t: max(low - t, t - high))
+    limit = low if worst < low else high
+    if all(low <= t <= high for t in temps):
+        return judged(
+            rule, PASS, worst, limit, f"All test temperatures lie within {low:g}–{high:g} °C."
+        )
+    return judged(
+        rule,
+        rule.failure,
+        worst,
+        limit,
+        f"A test temperature of {worst:.1f} °C lies outside {low:g}–{high:g} °C.",
+    )
+
+
+def head_change(head_terms: Sequence[tuple[int, float]], rule: Rule | None) -> Check:
+    """Head change of each falling-head interval against the reading resolution [-].
+
+    Parameters
+    ----------
+    head_terms : sequence of (int, float)
+        Trial number (from 1) and the head term of its relative uncertainty
+        (:func:`service.engine.uncertainty.head_term`), for falling-head trials only.
+    rule : Rule or None
+        ``max_head_term``.
+
+    Returns
+    -------
+    Check
+        The largest head term against max_head_term (docs/methods.md §8.9).
+    """
+    if rule is None:
+        return not_applicable("head_change", "No head-change rule is set for this standard.")
+    if not head_terms:
+        return not_applicable("head_change", "No falling-head interval.")
+    limit = rule.value("max_head_term")
+    worst_trial, worst = max(head_terms, key=lambda item: item[1])
+    if worst <= limit:
+        return judged(
+            rule,
             PASS,
             worst,
             limit,
-            "All test temperatures lie within 15–30 °C.",
-            SOURCES["temperature_range"],
+            f"Every head change is large enough for the reading resolution (head term at most "
+            f"{pct(worst, 2)}, limit {pct(limit, 0)}).",
         )
-    return Check(
-        "temperature_range",
-        WARN,
+    return judged(
+        rule,
+        rule.failure,
         worst,
         limit,
-        f"A test temperature of {worst:.1f} °C lies outside 15–30 °C, the range of ASTM D5084.",
-        SOURCES["temperature_range"],
+        f"In trial {worst_trial} the head changes so little that the head readings alone make "
+        f"k uncertain by {pct(worst, 1)} (limit {pct(limit, 0)}): let the head fall further.",
     )
 
 
-def specification(
-    k_ref_m_per_s: float, k_max_m_per_s: float | None, expanded_u_rel: float | None
+def darcy_linearity(
+    k_change: float | None, spread: float | None, n_gradients: int, rule: Rule | None
 ) -> Check:
-    """Compliance of the representative k_ref with the project's limit [m/s].
-
-    Notes
-    -----
-    Pass if k_ref ≤ k_max (domain-reference §7.4, practice).
-    """
-    if k_max_m_per_s is None:
-        return _na("specification", "No specification limit was given.")
-    source = SOURCES["specification"]
-    if k_ref_m_per_s <= k_max_m_per_s:
-        note = ""
-        if expanded_u_rel is not None and k_ref_m_per_s * (1 + expanded_u_rel) > k_max_m_per_s:
-            note = " The limit lies within the expanded uncertainty of the result."
-        return Check(
-            "specification",
-            PASS,
-            k_ref_m_per_s,
-            k_max_m_per_s,
-            f"k = {k_ref_m_per_s:.3g} m/s meets the limit of {k_max_m_per_s:.3g} m/s.{note}",
-            source,
-        )
-    return Check(
-        "specification",
-        FAIL,
-        k_ref_m_per_s,
-        k_max_m_per_s,
-        f"k = {k_ref_m_per_s:.3g} m/s exceeds the limit of {k_max_m_per_s:.3g} m/s.",
-        source,
-    )
-
-
-def hazen(k_ref_m_per_s: float, hazen_k_m_per_s: float | None) -> Check:
-    """Measured k against the Hazen estimate (advisory) [-].
-
-    Notes
-    -----
-    Ratio k/k_Hazen outside 0.1–10 is a warning (domain-reference §7.1, practice band).
-    """
-    if hazen_k_m_per_s is None:
-        return _na("hazen", "Needs D10 between 0.1 mm and 3 mm (clean sands only).")
-    ratio = k_ref_m_per_s / hazen_k_m_per_s
-    if 0.1 <= ratio <= 10.0:
-        return Check(
-            "hazen",
-            PASS,
-            ratio,
-            10.0 if ratio >= 1 else 0.1,
-            f"Measured k is {ratio:.3g} times the Hazen estimate {hazen_k_m_per_s:.3g} m/s.",
-            SOURCES["hazen"],
-        )
-    return Check(
-        "hazen",
-        WARN,
-        ratio,
-        10.0 if ratio > 1 else 0.1,
-        f"Measured k is {ratio:.3g} times the Hazen estimate {hazen_k_m_per_s:.3g} m/s: "
-        "check the gradation, the specimen and the test (advisory only).",
-        SOURCES["hazen"],
-    )
-
-
-def darcy_linearity(k_change: float | None, spread: float | None, n_gradients: int) -> Check:
     """Departure from Darcy's law in a constant-head series at increasing gradient [-].
 
     Parameters
@@ -560,42 +690,52 @@ def darcy_linearity(k_change: float | None, spread: float | None, n_gradients: i
         Largest |k_j/k̄ − 1| over the runs.
     n_gradients : int
         Number of distinct gradients.
+    rule : Rule or None
+        ``spread``, ``fall`` and ``gradients``.
 
-    Notes
-    -----
-    Fail if the runs disagree by more than 25 % (ASTM D5856 §4.4, read); warn if k falls
-    by more than 10 % as i rises (practice). Source: domain-reference §2.3.
+    Returns
+    -------
+    Check
+        Fail when the runs disagree by more than ``spread``; warn when k falls by more than
+        ``fall`` as the gradient rises, or fewer than ``gradients`` gradients confirm the
+        line (docs/methods.md §8.11).
     """
+    if rule is None:
+        return not_applicable("darcy_linearity", "No Darcy-linearity rule is set.")
     if k_change is None or spread is None or n_gradients < 2:
-        return _na("darcy_linearity", "Needs constant-head runs at two or more gradients.")
-    source = SOURCES["darcy_linearity"]
-    if spread > 0.25:
-        return Check(
-            "darcy_linearity",
-            FAIL,
-            spread,
-            0.25,
-            f"k differs by up to {spread:.1%} between gradients: flow is not Darcian over the "
-            "range; use the runs on the linear part only.",
-            source,
+        return not_applicable(
+            "darcy_linearity", "Needs constant-head runs at two or more gradients."
         )
-    if k_change < -0.10:
-        return Check(
-            "darcy_linearity",
+    band, fall = rule.value("spread"), rule.value("fall")
+    needed = round(rule.value("gradients"))
+    if spread > band:
+        return judged(
+            rule,
+            rule.failure,
+            spread,
+            band,
+            f"k differs by up to {pct(spread, 1)} between gradients: flow is not Darcian over the "
+            "range; use the runs on the linear part only.",
+        )
+    if k_change < -fall:
+        return judged(
+            rule,
             WARN,
             k_change,
-            -0.10,
-            f"k falls by {-k_change:.1%} from the lowest to the highest gradient: a sign of "
+            -fall,
+            f"k falls by {pct(-k_change, 1)} from the lowest to the highest gradient: a sign of "
             "non-Darcy (non-laminar) flow.",
-            source,
         )
-    status = PASS if n_gradients >= 3 else WARN
-    extra = "" if n_gradients >= 3 else " Three gradients are needed to confirm linearity."
-    return Check(
-        "darcy_linearity",
-        status,
+    enough = n_gradients >= needed
+    extra = (
+        ""
+        if enough
+        else f" {_count(needed).capitalize()} gradients are needed to confirm linearity."
+    )
+    return judged(
+        rule,
+        PASS if enough else WARN,
         spread,
-        0.25,
-        f"k agrees within {spread:.1%} over {n_gradients} gradients.{extra}",
-        source,
+        band,
+        f"k agrees within {pct(spread, 1)} over {_count(n_gradients)} gradients.{extra}",
     )

@@ -8,21 +8,21 @@ SECONDS_PER_DAY = 86400.0
 FOOT_M = 0.3048
 """International foot [m], exact."""
 DARCY_M2 = 9.869233e-13
-"""1 darcy [m²]: 1 cP, 1 cm/s, 1 atm/cm (domain-reference §9.3; pint defines 9.86923267e-13)."""
+"""1 darcy [m²]: 1 cP, 1 cm/s, 1 atm/cm (NIST SP 811 App. B; docs/methods.md §11.2)."""
 
 
 def k_to_cm_per_s(k_m_per_s: float) -> float:
-    """k [m/s] → [cm/s]; 1 cm/s = 1e-2 m/s (domain-reference §9.2)."""
+    """Convert k [m/s] to [cm/s]; 1 cm/s = 1e-2 m/s (docs/methods.md §11.2)."""
     return k_m_per_s * 100.0
 
 
 def k_to_m_per_day(k_m_per_s: float) -> float:
-    """k [m/s] → [m/day]; 1 m/day = 1/86400 m/s (domain-reference §9.2)."""
+    """Convert k [m/s] to [m/day]; 1 m/day = 1/86400 m/s (docs/methods.md §11.2)."""
     return k_m_per_s * SECONDS_PER_DAY
 
 
 def k_to_ft_per_day(k_m_per_s: float) -> float:
-    """k [m/s] → [ft/day]; 1 ft/day = 0.3048/86400 m/s (domain-reference §9.2)."""
+    """Convert k [m/s] to [ft/day]; 1 ft/day = 0.3048/86400 m/s (docs/methods.md §11.2)."""
     return k_m_per_s * SECONDS_PER_DAY / FOOT_M
 
 
@@ -53,7 +53,7 @@ def intrinsic_permeability(
 
     Notes
     -----
-    K = k·η/(ρ_w·g) (domain-reference §9.3, derived from k = K·ρ_w·g/η).
+    K = k·η/(ρ_w·g), derived from k = K·ρ_w·g/η (docs/methods.md §11.2).
     """
     if unit_weight_n_per_m3 is None:
         if density_kg_per_m3 is None:
@@ -63,5 +63,5 @@ def intrinsic_permeability(
 
 
 def m2_to_darcy(permeability_m2: float) -> float:
-    """Intrinsic permeability [m²] → [darcy]; 1 D = 9.869233e-13 m² (domain-reference §9.3)."""
+    """Convert intrinsic permeability [m²] to [darcy]; 1 D = 9.869233e-13 m² (§11.2)."""
     return permeability_m2 / DARCY_M2

@@ -80,20 +80,24 @@ class EngineInputError(ValueError):
 
     @property
     def loc(self) -> Loc:
+        """Location of the first problem."""
         return self.problems[0].loc
 
     @property
     def value(self) -> Any:
+        """Value received in the first problem's field."""
         return self.problems[0].value
 
     @property
     def accepted(self) -> str:
+        """What the first problem's field accepts."""
         return self.problems[0].accepted
 
     @property
     def kind(self) -> str:
+        """Category of the first problem."""
         return self.problems[0].kind
 
     def prefixed(self, *prefix: str | int) -> EngineInputError:
-        """The same problems with ``prefix`` put in front of every location."""
+        """Return the same problems with ``prefix`` put in front of every location."""
         return EngineInputError(replace(p, loc=(*prefix, *p.loc)) for p in self.problems)

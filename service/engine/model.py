@@ -16,9 +16,12 @@ METHODS = ("constant_head", "falling_head", "falling_head_rising_tail", "constan
 
 @dataclass(frozen=True, slots=True)
 class Options:
-    """How to reduce: reference temperature, correction method, water-density convention."""
+    """How to reduce: reference temperature, correction method, water-density convention.
 
-    reference_temperature_c: float = 20.0
+    ``reference_temperature_c`` None means the rule set's own (docs/methods.md §4.5).
+    """
+
+    reference_temperature_c: float | None = None
     temperature_correction: str = "iapws"
     water_density: str = "temperature"
     viscosity_pa_s: float | None = None
@@ -65,10 +68,12 @@ class SaturationStep:
 
 @dataclass(frozen=True, slots=True)
 class Reading:
-    """One reading of a multi-reading falling-head run."""
+    """One reading of a multi-reading falling-head run, with its standard uncertainties."""
 
     time_s: float
     head_m: float
+    time_u_s: float | None = None
+    head_u_m: float | None = None
 
 
 TRIAL_NUMBERS = (
@@ -117,6 +122,8 @@ class ReductionInput:
     apparatus: Apparatus = field(default_factory=Apparatus)
     saturation: tuple[SaturationStep, ...] = ()
     k_max_m_per_s: float | None = None
+    permeameter: str | None = None
+    decision_rule: str | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -135,6 +142,7 @@ class TrialResult:
     slope_std_error_rel: float | None = None
     head_final_m: float | None = None
     u_contributions: Mapping[str, float] | None = None
+    head_term_rel: float | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -147,6 +155,8 @@ class Summary:
     expanded_u_rel: float | None
     u_rel_type_a: float | None
     intrinsic_permeability_m2: float
+    coverage_factor: float | None = None
+    effective_degrees_of_freedom: float | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -203,3 +213,6 @@ class ReductionResult:
     kozeny_carman_k_m_per_s: float | None
     gradient_series: GradientSeries | None
     checks: tuple[Check, ...]
+    rules_version: str = ""
+    permeameter: str | None = None
+    decision_rule: str = "simple"

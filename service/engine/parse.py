@@ -11,7 +11,6 @@ from collections.abc import Mapping
 from typing import Any
 
 from service.engine import units
-from service.engine.checks import STANDARDS
 from service.engine.errors import EngineInputError, InputProblem, Loc
 from service.engine.model import (
     METHODS,
@@ -25,6 +24,7 @@ from service.engine.model import (
 )
 from service.engine.phase import cylinder_area, phase_relations
 from service.engine.reductions import rising_tail_final_head
+from service.engine.rules import DECISION_RULES, PERMEAMETERS, STANDARDS
 from service.engine.water import MAX_TEMPERATURE_C, MIN_TEMPERATURE_C, water_density
 
 MAX_TRIALS = 500
@@ -39,6 +39,7 @@ TOP_KEYS = (
     "saturation",
     "trials",
     "specification",
+    "permeameter",
 )
 
 # Field name -> (kind, SI field name, must be > 0)
@@ -175,7 +176,7 @@ class _Reader:
         return self._defaults[name]
 
     def section(self, raw: Any, loc: Loc, allowed: set[str] | tuple[str, ...]) -> dict[str, Any]:
-        """A JSON object with only ``allowed`` keys (None values dropped)."""
+        """Return a JSON object's ``allowed`` keys (None values dropped), refusing the others."""
         if raw is None:
             return {}
         if not isinstance(raw, Mapping):
@@ -250,13 +251,21 @@ def _read_options(reader: _Reader, raw: Any) -> Options:
         got = reader.quantity(data, name, loc, OPTION_QUANTITIES)
         if got is not None:
             values[field_name] = got[0]
-    ref = values.get("reference_temperature_c", 20.0)
-    if "reference_temperature" in data and not _temperature_ok(
+    ref = values.get("reference_temperature_c")
+    if ref is not None and not _temperature_ok(
         reader, (*loc, "reference_temperature"), data["reference_temperature"], ref
     ):
-        ref = 20.0
+        ref = None
     correction = reader.choice(data, "temperature_correction", loc, CORRECTIONS, "iapws")
-    if correction == "astm_d5084" and abs(ref - 20.0) > 1e-9:
+    if correction == "astm_d5084" and "viscosity_pa_s" in values:
+        reader.add(
+            (*loc, "viscosity"),
+            data["viscosity"],
+            "either a viscosity (the factor is then η/η(T_ref)) or the ASTM D5084 R_T formula",
+            "cannot be combined with the ASTM D5084 R_T formula",
+            "incompatible_options",
+        )
+    if correction == "astm_d5084" and ref is not None and abs(ref - 20.0) > 1e-9:
         reader.add(
             (*loc, "temperature_correction"),
             correction,
@@ -478,7 +487,7 @@ def _read_readings(reader: _Reader, raw: Any, loc: Loc) -> tuple[Reading, ...] |
         if t is None or h is None:
             ok = False
             continue
-        out.append(Reading(time_s=t[0], head_m=h[0]))
+        out.append(Reading(time_s=t[0], head_m=h[0], time_u_s=t[1], head_u_m=h[1]))
     if not ok:
         return None
     for i in range(1, len(out)):
@@ -708,7 +717,13 @@ def parse_request(
     spec_values, spec_u = _read_specimen(reader, payload.get("specimen"))
     apparatus = _read_apparatus(reader, payload.get("apparatus"))
     saturation = _read_saturation(reader, payload.get("saturation"))
-    spec = reader.section(payload.get("specification"), ("specification",), ("k_max",))
+    spec = reader.section(
+        payload.get("specification"), ("specification",), ("k_max", "decision_rule")
+    )
+    decision_rule = reader.choice(spec, "decision_rule", ("specification",), DECISION_RULES, None)
+    permeameter = None
+    if payload.get("permeameter") is not None:
+        permeameter = reader.choice(payload, "permeameter", (), PERMEAMETERS, None)
     k_max = None
     if "k_max" in spec:
         try:
@@ -751,6 +766,15 @@ def parse_request(
             "is required",
             "missing",
         )
+    spacing, length = apparatus.manometer_spacing_m, spec_values.get("length_m")
+    if spacing is not None and length is not None and spacing > length * (1.0 + 1e-9):
+        reader.add(
+            ("apparatus", "manometer_spacing"),
+            payload["apparatus"]["manometer_spacing"],
+            "a spacing between the manometer ports no longer than the specimen length",
+            "is longer than the specimen",
+            "out_of_range",
+        )
     if method == "falling_head" and apparatus.standpipe_area_m2 is None:
         reader.add(
             ("apparatus", "standpipe_area"),
@@ -785,6 +809,8 @@ def parse_request(
         saturation=saturation,
         trials=tuple(t for t in trials if t is not None),
         k_max_m_per_s=k_max,
+        permeameter=permeameter,
+        decision_rule=decision_rule,
     )
 
 

@@ -33,7 +33,7 @@ def cylinder_area(diameter_m: float) -> float:
 
     Notes
     -----
-    A = π·D²/4 (domain-reference §2.1).
+    A = π·D²/4 (docs/methods.md §5).
     """
     return math.pi * diameter_m * diameter_m / 4.0
 
@@ -73,7 +73,7 @@ def phase_relations(
     Notes
     -----
     V = A·H; ρ = M/V; ρ_d = ρ/(1 + w); e = G_s·ρ_w/ρ_d − 1; n = e/(1 + e); S = w·G_s/e;
-    RC = 100·ρ_d/ρ_d,max. Source: standard soil-mechanics identities (domain-reference §5).
+    RC = 100·ρ_d/ρ_d,max. Source: standard soil-mechanics identities (docs/methods.md §5).
 
     Raises
     ------

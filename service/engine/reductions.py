@@ -32,7 +32,7 @@ def constant_head_k(
 
     Notes
     -----
-    k_T = Q·L / (A·Δh·t). Source: Darcy's law (domain-reference §2.1, derived; ASTM D2434-68
+    k_T = Q·L / (A·Δh·t). Source: Darcy's law (docs/methods.md §2.1; ASTM D2434-68
     and D5084 Method A use the same expression, from memory).
     """
     return volume_m3 * length_m / (area_m2 * head_m * duration_s)
@@ -64,7 +64,7 @@ def falling_head_k(
     Notes
     -----
     k_T = a·L/(A·Δt)·ln(h1/h2). Source: continuity −a·dh/dt = k·(h/L)·A integrated
-    (domain-reference §3.1, derived; ASTM D5084 / D5856 Method B).
+    (docs/methods.md §3.1; ASTM D5084 / D5856 Method B).
     """
     return (
         standpipe_area_m2
@@ -79,7 +79,7 @@ def rising_tail_effective_area(headwater_area_m2: float, tailwater_area_m2: floa
 
     Notes
     -----
-    From dΔh/dt = −q·(1/a_in + 1/a_out) (domain-reference §3.2, derived).
+    From dΔh/dt = −q·(1/a_in + 1/a_out) (docs/methods.md §3.2).
     """
     return headwater_area_m2 * tailwater_area_m2 / (headwater_area_m2 + tailwater_area_m2)
 
@@ -111,7 +111,7 @@ def falling_head_rising_tail_k(
     Notes
     -----
     k_T = (a_in·a_out·L) / ((a_in + a_out)·A·Δt) · ln(Δh1/Δh2).
-    Source: domain-reference §3.2 (derived; ASTM D5084 / D5856 Method C form from memory).
+    Source: docs/methods.md §3.2 (ASTM D5084 / D5856 Method C).
     """
     a_eff = rising_tail_effective_area(headwater_area_m2, tailwater_area_m2)
     return a_eff * length_m / (area_m2 * duration_s) * math.log(head_initial_m / head_final_m)
@@ -124,11 +124,11 @@ def rising_tail_final_head(
     headwater_area_m2: float,
     tailwater_area_m2: float,
 ) -> float:
-    """Final head difference from the burette volumes of a rising-tailwater interval [m].
+    """Compute the final head difference of a rising-tailwater interval from its volumes [m].
 
     Notes
     -----
-    Δh2 = Δh1 − V_in/a_in − V_out/a_out (domain-reference §3.2, derived).
+    Δh2 = Δh1 − V_in/a_in − V_out/a_out (docs/methods.md §3.2).
     """
     return (
         head_initial_m
@@ -155,7 +155,7 @@ def constant_rate_k(
 
     Notes
     -----
-    k_T = q·L/(A·Δh). Source: domain-reference §3.4 (derived; ASTM D5084 Method D, memory).
+    k_T = q·L/(A·Δh). Source: docs/methods.md §3.4 (ASTM D5084 Method D).
     """
     return flow_rate_m3_per_s * length_m / (area_m2 * head_m)
 
@@ -172,7 +172,7 @@ def head_from_pressure(pressure_pa: float, unit_weight_n_per_m3: float) -> float
 
     Notes
     -----
-    Δh = Δu/(ρ_w·g) (domain-reference §2.1 and §3.4, derived).
+    Δh = Δu/(ρ_w·g) (docs/methods.md §3.5).
     """
     return pressure_pa / unit_weight_n_per_m3
 
@@ -213,7 +213,7 @@ def fit_log_head(times_s: Sequence[float], heads_m: Sequence[float]) -> LogHeadF
     -----
     ln h(t) = ln h0 − c·t, c = −slope; k = c·a·L/A (Method B) or
     c·L·a_in·a_out/(A·(a_in + a_out)) (Method C). Standard error of the slope
-    s_b = √(Σr²/(n − 2) / Σ(t − t̄)²). Source: domain-reference §3.3 (derived; practice).
+    s_b = √(Σr²/(n − 2) / Σ(t − t̄)²). Source: docs/methods.md §3.3.
     """
     n = len(times_s)
     ys = [math.log(h) for h in heads_m]
@@ -270,7 +270,7 @@ def fit_velocity_gradient(
     -----
     v = k·i through the origin: k = Σ v·i / Σ i²; with intercept by ordinary least squares.
     Source: ASTM D2434-68 procedure (v vs i, linear part only, memory); ASTM D5856 §4.4
-    (read); domain-reference §2.3.
+    (read); docs/methods.md §2.5.
     """
     n = len(gradients)
     k0 = sum(v * i for i, v in zip(gradients, velocities_m_per_s, strict=True)) / sum(
@@ -321,7 +321,7 @@ def reynolds_number(
 
     Notes
     -----
-    Re = ρ_w·v·d/η. Source: Bear (1972); Freeze & Cherry (1979) (domain-reference §2.4, memory).
+    Re = ρ_w·v·d/η. Source: Bear (1972); Freeze & Cherry (1979) (docs/methods.md §2.6).
     """
     return density_kg_per_m3 * velocity_m_per_s * grain_size_m / viscosity_pa_s
 
@@ -337,7 +337,7 @@ def hazen_k(d10_m: float) -> float:
     Notes
     -----
     k (cm/s) ≈ C_H·D10² with D10 in cm and C_H = 100 (water at about 10 °C).
-    Source: Carrier (2003), J. Geotech. Geoenviron. Eng. 129(11):1054 (domain-reference §7.1).
+    Source: Carrier (2003), J. Geotech. Geoenviron. Eng. 129(11):1054 (docs/methods.md §10.1).
     """
     d10_cm = d10_m * 100.0
     return 100.0 * d10_cm * d10_cm / 100.0
@@ -361,7 +361,7 @@ def kozeny_carman_k(
 
     Notes
     -----
-    K = d²·n³ / (180·(1 − n)²); k = K·γ_w/η. Source: Carman (1937); domain-reference §7.2.
+    K = d²·n³ / (180·(1 − n)²); k = K·γ_w/η. Source: Carman (1937); docs/methods.md §10.2.
     """
     permeability = grain_size_m**2 * porosity**3 / (180.0 * (1.0 - porosity) ** 2)
     return permeability * unit_weight_n_per_m3 / viscosity_pa_s

@@ -53,8 +53,31 @@ VISCOSITY = Kind(
 UNIT_WEIGHT = Kind(
     "unit weight", "N/m**3", "[mass]/[length]**2/[time]**2", "'9.79 kN/m**3' or '62.3 lbf/ft**3'"
 )
-FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' or 0.185")
+FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' (with its % sign)")
 NUMBER = Kind("number", "", "dimensionless", "a plain number such as 2.70")
+
+# Percentages and fractions must say which they are: a bare 5 is never read as 500 %.
+UNIT_REQUIRED = frozenset({FRACTION.name})
+
+# Magnitudes no permeability test has, in the canonical unit: (smallest above zero, largest).
+# Within them every product the engine forms stays a finite float (docs/methods.md §11.3).
+PLAUSIBLE_MAGNITUDE: dict[str, tuple[float, float]] = {
+    LENGTH.name: (1e-9, 1e4),
+    AREA.name: (1e-12, 1e4),
+    VOLUME.name: (1e-15, 1e3),
+    MASS.name: (1e-12, 1e4),
+    DURATION.name: (1e-3, 1e9),
+    TIME.name: (0.0, 1e9),
+    TEMPERATURE.name: (0.0, 1e3),
+    PRESSURE.name: (1e-6, 1e9),
+    FLOW_RATE.name: (1e-20, 1e3),
+    DENSITY.name: (1.0, 1e5),
+    CONDUCTIVITY.name: (1e-20, 1e3),
+    VISCOSITY.name: (1e-6, 1e3),
+    UNIT_WEIGHT.name: (1.0, 1e6),
+    FRACTION.name: (1e-9, 1e3),
+    NUMBER.name: (1e-9, 1e6),
+}
 
 _NUMBER_THEN_UNIT = re.compile(r"^\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 _LONG_DIGITS = re.compile(r"\d{3,}")
@@ -77,7 +100,7 @@ def _a(noun: str) -> str:
 
 
 def accepted_text(kind: Kind, *, positive: bool) -> str:
-    """What a field of this kind accepts, for messages."""
+    """Describe what a field of this kind accepts, for messages."""
     if kind.dimensionality == "dimensionless":
         return f"{_a(kind.name)} such as {kind.examples}"
     rule = " greater than zero" if positive else ""
@@ -189,6 +212,14 @@ def parse_quantity(
             raise EngineInputError.single(
                 (*loc, "value"), raw.get("value"), "a number", "is not a number", "not_a_number"
             )
+        if kind.name in UNIT_REQUIRED and "unit" not in raw:
+            raise EngineInputError.single(
+                loc,
+                raw,
+                accepted,
+                "has no unit: say '%' or give a fraction with unit ''",
+                "missing_unit",
+            )
         unit_text = raw.get("unit", "")
         if unit_text is None:
             unit_text = ""
@@ -223,10 +254,14 @@ def parse_quantity(
             raise EngineInputError.single(loc, raw, accepted, reason, "bad_quantity")
         magnitude = float(match.group(1))
         unit_text = match.group(2)
+        if kind.name in UNIT_REQUIRED and not unit_text:
+            raise EngineInputError.single(
+                loc, raw, accepted, "is a number without '%' or a unit", "missing_unit"
+            )
     elif _number(raw) is not None and not isinstance(raw, str):
         magnitude = float(raw)
         unit_text = ""
-        if not dimensionless:
+        if not dimensionless or kind.name in UNIT_REQUIRED:
             raise EngineInputError.single(
                 loc, raw, accepted, "is a number without a unit", "missing_unit"
             )
@@ -247,7 +282,35 @@ def parse_quantity(
             loc, raw, accepted, "must be greater than zero", "not_positive"
         )
     u = abs(conv.factor) * u_typed if u_typed is not None else default_u
+    _refuse_implausible(raw, kind, loc, accepted, value, u)
     return value, u
+
+
+def _refuse_implausible(
+    raw: Any, kind: Kind, loc: Loc, accepted: str, value: float, u: float | None
+) -> None:
+    """Refuse a magnitude no test has, so that no figure derived from it can overflow."""
+    bounds = PLAUSIBLE_MAGNITUDE.get(kind.name)
+    if bounds is None:
+        return
+    smallest, largest = bounds
+    unit = f" {kind.canonical_unit}" if kind.canonical_unit else ""
+    if abs(value) > largest or (u is not None and u > largest):
+        raise EngineInputError.single(
+            loc,
+            raw,
+            f"{accepted}, at most {largest:g}{unit}",
+            "is too large for any permeability test",
+            "out_of_range",
+        )
+    if value != 0.0 and abs(value) < smallest:
+        raise EngineInputError.single(
+            loc,
+            raw,
+            f"{accepted}, at least {smallest:g}{unit}",
+            "is too small for any permeability test",
+            "out_of_range",
+        )
 
 
 def parse_uncertainty(raw: Any, kind: Kind, loc: Loc) -> float:

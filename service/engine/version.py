@@ -1,3 +1,3 @@
 """Version of the reduction engine, stored with every result it makes."""
 
-ENGINE_VERSION = "1.0.0"
+ENGINE_VERSION = "1.1.0"

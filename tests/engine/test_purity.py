@@ -52,3 +52,21 @@ def test_engine_module_imports_only_stdlib_numpy_pint_and_engine(path):
             assert (
                 top in sys.stdlib_module_names or top in ALLOWED_THIRD_PARTY or top == "__future__"
             ), f"{path.name} imports {name}"
+
+
+METHODS = ENGINE.parents[1] / "docs" / "methods.md"
+
+
+def test_engine_cites_the_methods_document_and_its_sections_exist():
+    # issue 10 item 7: docstrings cite docs/methods.md (by section) or the published source,
+    # never a file outside the repository
+    import re
+
+    headings = set(re.findall(r"^#{2,3} (\d+(?:\.\d+)?)\.? ", METHODS.read_text(), re.MULTILINE))
+    cited: set[str] = set()
+    for path in MODULES:
+        text = path.read_text()
+        assert "domain-reference" not in text, path.name
+        cited.update(re.findall(r"methods\.md §(\d+(?:\.\d+)?)", text))
+    assert len(cited) >= 20
+    assert cited <= headings, sorted(cited - headings)

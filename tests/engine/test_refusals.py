@@ -51,3 +51,20 @@ def test_bad_default_uncertainty_is_named():
 def test_payload_must_be_an_object():
     with pytest.raises(EngineInputError):
         parse_request([1, 2])  # type: ignore[arg-type]
+
+
+def test_reduce_never_returns_a_non_finite_figure():
+    # issue 15: a figure out of float range once reached JSON. Built without parse_request (so
+    # past its plausible magnitudes), this specimen gives a finite k of 1e300 m/s but a
+    # discharge velocity Q/(A·t) = 1e300/1e-300 that overflows: the engine refuses it.
+    from service.engine import reduce
+    from service.engine.model import ReductionInput, Specimen, Trial
+
+    inp = ReductionInput(
+        method="constant_head",
+        specimen=Specimen(area_m2=1e-300, length_m=1e-300),
+        trials=(Trial(volume_m3=1e300, duration_s=1.0, head_difference_m=1.0),),
+    )
+    with pytest.raises(EngineInputError) as info:
+        reduce(inp)
+    assert info.value.kind == "impossible_test"

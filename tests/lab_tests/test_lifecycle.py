@@ -338,6 +338,21 @@ def test_an_impossible_trial_is_refused_naming_the_field_and_nothing_is_stored(l
     assert lab.session.exec(select(IdempotencyRecord)).all() == []
 
 
+def test_an_implausible_magnitude_is_refused_not_stored(lab: Lab) -> None:
+    # issue 15: "1e308 m" in a stored trial once made every reduction answer 500 ("Out of range
+    # float values are not JSON compliant"); engine 1.1 refuses it at entry, naming the field
+    test_id = request_falling_head(lab)
+    record_specimen(lab, test_id)
+    huge = post_trial(lab, test_id, {**CV2_TRIAL, "head_initial": "1e308 m"}, "huge-1")
+    assert huge.status_code == 422
+    assert huge.json()["detail"][0]["loc"] == ["body", "head_initial"]
+    assert lab.session.exec(select(Trial)).all() == []
+    assert (
+        lab.client.get(f"/api/v1/tests/{test_id}", headers=lab.as_(lab.technician)).status_code
+        == 200
+    )
+
+
 def test_a_wrong_unit_is_refused_naming_the_field(lab: Lab) -> None:
     test_id = request_falling_head(lab)
     response = record_specimen(lab, test_id, diameter="7.10 kg")
