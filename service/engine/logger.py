@@ -120,7 +120,7 @@ class LoggerReadings:
 
 
 def column_index(header: Sequence[str], wanted: str) -> int | None:
-    """A column by header text (case and surrounding space ignored) or by 1-based number."""
+    """Find a column by header text (case and surrounding space ignored) or by 1-based number."""
     names = [h.strip().casefold() for h in header]
     key = wanted.strip().casefold()
     if key and key in names:
@@ -131,7 +131,7 @@ def column_index(header: Sequence[str], wanted: str) -> int | None:
 
 
 def cell_message(problem: InputProblem) -> str:
-    """A refusal as a person reads it: ``row 12, column 'Cell (kPa)': ...``."""
+    """Render a refusal as a person reads it: ``row 12, column 'Cell (kPa)': ...``."""
     loc = problem.loc
     if len(loc) == 5 and loc[0] == "file" and loc[1] == "row" and loc[3] == "column":
         text = str(problem.value) if problem.value is not None else ""
@@ -144,7 +144,7 @@ def cell_message(problem: InputProblem) -> str:
 
 
 def _number(text: str) -> tuple[float | None, str]:
-    """The cell's number, or None and why not."""
+    """Read the cell's number, or None and why not."""
     if _DECIMAL_COMMA.match(text):
         return None, "uses a decimal comma; write a decimal point"
     if not _NUMBER.match(text):

@@ -166,7 +166,7 @@ def burette_volume_change(reading_from: float, reading_to: float, burette: Buret
     -----
     ΔV = a·(z_to − z_from): positive when the level rises. Inflow to the specimen is
     V_in = −ΔV of the headwater burette; outflow V_out = ΔV of the tailwater burette.
-    Source: continuity in a uniform bore (domain-reference §3.2, derived).
+    Source: continuity in a uniform bore (docs/methods.md §14.1, derived).
     """
     return burette.area_m2 * (
         burette_level(reading_to, burette) - burette_level(reading_from, burette)
@@ -195,7 +195,7 @@ def apparent_head(
     -----
     Δh' = (p_hw − p_tw)/(ρ_w·g) + (z_hw − z_tw), g = 9.80665 m/s² (standard gravity).
     Source: Bernoulli's total head with zero velocity, pressure head p/(ρ_w·g) plus
-    elevation (derived; domain-reference §3.2). Water's compressibility changes ρ_w by about
+    elevation (derived; docs/methods.md §14.1). Water's compressibility changes ρ_w by about
     0.02 % at 500 kPa (IAPWS-95), which is neglected.
     """
     unit_weight = water_density_kg_per_m3 * water.STANDARD_GRAVITY
@@ -221,7 +221,7 @@ def head_across_specimen(apparent_head_m: float, zero_flow_head_m: float) -> flo
     Δh = Δh' − Δh'₀. With the specimen bypassed the true head difference is zero, so
     whatever is read then — capillary rise that differs between burettes of unequal bore,
     and any offset between their scales — is subtracted from every later reading.
-    Source: common practice, no source (domain-reference §3.2 [practice]).
+    Source: common practice, no source (docs/methods.md §14.1).
     """
     return apparent_head_m - zero_flow_head_m
 
@@ -456,7 +456,7 @@ def permeation_determinations(
     * C, rising tailwater: k = a_in·a_out·L/((a_in + a_out)·A·Δt)·ln(Δh1/Δh2).
 
     k_ref = R·k with R from the interval's mean temperature. Pore volumes of flow
-    = ΣV_out/V_v. Sources: domain-reference §2.1, §3.1, §3.2 (derived; ASTM D5084 A, B and C,
+    = ΣV_out/V_v. Sources: docs/methods.md §2.1, §3.1, §3.2, §14.2 (derived; ASTM D5084 A, B and C,
     Q as the mean of inflow and outflow for A from memory); pore volumes of flow, common
     practice, no source.
 
@@ -651,7 +651,9 @@ def permeation_request(
     headwater: Burette,
     tailwater: Burette | None,
 ) -> dict[str, Any]:
-    """The ``method``, ``apparatus`` and ``trials`` of a reduction request for these determinations.
+    """Build the ``method``, ``apparatus`` and ``trials`` of a reduction request for these.
+
+    The request is for the determinations given.
 
     Parameters
     ----------

@@ -173,7 +173,7 @@ def degree_of_saturation(
     Notes
     -----
     e = G_s·ρ_w/ρ_d − 1, S = w·G_s/e, by :func:`service.engine.phase.phase_relations` on a
-    unit volume (domain-reference §5).
+    unit volume (docs/methods.md §5).
 
     Raises
     ------
@@ -357,7 +357,7 @@ def classify_specimens(
     Acceptable: k₂₀ ≤ k_max (and S ≥ S_min when set). Source: the acceptable-zone approach
     for compacted soil liners of Daniel, D.E. & Benson, C.H. (1990), "Water content–density
     criteria for compacted soil liners", J. Geotech. Eng. 116(12):1811–1830 (from memory);
-    S from the phase relations; RC = 100·ρ_d/ρ_d,max (domain-reference §5).
+    S from the phase relations; RC = 100·ρ_d/ρ_d,max (docs/methods.md §5).
     """
     problems: list[InputProblem] = []
     out: list[ClassifiedSpecimen] = []

@@ -17,6 +17,7 @@ from service.engine import checks
 from service.engine.errors import EngineInputError, InputProblem, Loc
 from service.engine.model import SaturationStep
 from service.engine.phase import PhaseRelations, cylinder_area, phase_relations
+from service.engine.rules import BUILT_IN, FLEXIBLE_WALL, RuleBook
 
 # --- saturation ----------------------------------------------------------------------------
 
@@ -178,7 +179,8 @@ def saturation_series(
     *,
     stiff_material: bool,
     standard: str | None,
-    tolerance: float = 0.01,
+    permeameter: str | None = FLEXIBLE_WALL,
+    rules: RuleBook | None = None,
 ) -> SaturationSeries:
     """B against back pressure and the verdict of the saturation check.
 
@@ -190,14 +192,17 @@ def saturation_series(
         Declared stiff (B may stay below 0.95 when fully saturated).
     standard : str or None
         E.g. ``"ASTM D5084"``.
-    tolerance : float
-        Largest change of B over the last step that counts as unchanged [-].
+    permeameter : {"flexible_wall", "rigid_wall"} or None
+        The permeameter used; a B check belongs to the flexible-wall test.
+    rules : RuleBook, optional
+        The rule book whose saturation rule applies (default: the built-in one); its
+        ``b_min`` and ``b_change`` limits decide.
 
     Notes
     -----
     The verdict is :func:`service.engine.checks.saturation`: B ≥ 0.95, or for a stiff
-    material B that changed by at most ``tolerance`` between the last two checks
-    (ASTM D5084, from memory; the 0.01 tolerance common practice, domain-reference §6.1.1).
+    material B that changed by at most ``b_change`` between the last two checks
+    (ASTM D5084, from memory; the 0.01 tolerance common practice; docs/methods.md §8.5).
     Black & Lee (1973) explain why a stiff, saturated skeleton gives B < 1 (from memory).
     """
     reduced = b_checks(readings)
@@ -207,7 +212,12 @@ def saturation_series(
         b_checks=reduced,
         last_change=last_change,
         steps=tuple(SaturationStep(c.b_value, c.back_pressure_pa) for c in reduced),
-        check=checks.saturation(b_list, stiff_material, standard, tolerance),
+        check=checks.saturation(
+            b_list,
+            stiff_material,
+            (rules or BUILT_IN).for_standard(standard).rule("saturation"),
+            permeameter,
+        ),
     )
 
 
@@ -469,7 +479,7 @@ def dry_mass(wet_mass_kg: float, water_content: float) -> float:
 
     Notes
     -----
-    M_s = M/(1 + w) (domain-reference §5, standard identity).
+    M_s = M/(1 + w) (docs/methods.md §5, standard identity).
     """
     return wet_mass_kg / (1.0 + water_content)
 
@@ -479,7 +489,7 @@ def water_content_from_masses(wet_mass_kg: float, dry_mass_kg: float) -> float:
 
     Notes
     -----
-    w = (M − M_s)/M_s (domain-reference §5; ASTM D2216 / ISO 17892-1, from memory).
+    w = (M − M_s)/M_s (docs/methods.md §5; ASTM D2216 / ISO 17892-1, from memory).
     """
     return (wet_mass_kg - dry_mass_kg) / dry_mass_kg
 
@@ -508,7 +518,7 @@ def permeation_state(
     -----
     ρ_d = M_s/V, e = G_s·ρ_w/ρ_d − 1, n = e/(1 + e) from
     :func:`service.engine.phase.phase_relations` (given M_s as the mass and w = 0);
-    V_v = n·V. Source: domain-reference §5.
+    V_v = n·V. Source: docs/methods.md §5.
     """
     phase = _phase(
         ("dry_mass",),
@@ -565,7 +575,7 @@ def post_test_state(
     -----
     w = (M − M_s)/M_s, then :func:`service.engine.phase.phase_relations` with A = π·D²/4.
     A final degree of saturation well below 100 % after back-pressure saturation points to
-    a wrong G_s, mass or dimension (domain-reference §5, practice).
+    a wrong G_s, mass or dimension (docs/methods.md §5, practice).
 
     Raises
     ------
