@@ -651,9 +651,9 @@ def permeation_request(
     headwater: Burette,
     tailwater: Burette | None,
 ) -> dict[str, Any]:
-    """Build the ``method``, ``apparatus`` and ``trials`` of a reduction request for these.
+    """Build the ``method``, ``apparatus`` and ``trials`` of a reduction request.
 
-    The request is for the determinations given.
+    One trial per determination, in the order given.
 
     Parameters
     ----------
