@@ -10,8 +10,8 @@ its own copy, so tests in parallel processes never see each other's rows:
 - PostgreSQL (the base DATABASE_URL names a database the suite may create others beside): the
   template is a database `<base>_<run>_template`; a copy is `CREATE DATABASE ... TEMPLATE`
   (about 0.2 s against about 1 s for the migrations), with synchronous_commit off (a test
-  database need not survive a crash). Each process drops its copy at the end of its session,
-  and the process that started the run drops the template."""
+  database need not survive a crash) and a 30 s lock_timeout. Each process drops its copy at
+  the end of its session, and the process that started the run drops the template."""
 
 from __future__ import annotations
 
@@ -95,6 +95,9 @@ class TestDatabases:
                     _drop(self.url),
                     f"CREATE DATABASE {own} TEMPLATE {_name(self.template_url)}",
                     f"ALTER DATABASE {own} SET synchronous_commit = off",
+                    # A request stuck behind a lock fails within 30 s instead of never (an
+                    # event loop blocked on a lock never answers again: see the browser tests).
+                    f"ALTER DATABASE {own} SET lock_timeout = '30s'",
                 )
             else:
                 shutil.copyfile(self.template_url.split("///", 1)[1], self.url.split("///", 1)[1])
