@@ -29,13 +29,15 @@ run: demo
 	$(BIN)/seepline serve
 
 # The suite in parallel (pytest-xdist: one process per core, a database each), then the
-# browser tests on their own so Chromium does not compete with it. PYTEST_ARGS go to both
-# (exit status 5, "no tests selected", is fine when they name tests of one group only).
+# browser tests on their own so Chromium does not compete with it (two at a time: they mostly
+# wait on the browser). PYTEST_ARGS go to both (exit status 5, "no tests selected", is fine
+# when they name tests of one group only).
 TEST_WORKERS ?= auto
+BROWSER_WORKERS ?= 2
 PYTEST_ARGS ?=
 test: install
 	$(BIN)/pytest -n $(TEST_WORKERS) -m "not browser" $(PYTEST_ARGS) || [ $$? -eq 5 ]
-	$(BIN)/pytest -m browser $(PYTEST_ARGS) || [ $$? -eq 5 ]
+	$(BIN)/pytest -n $(BROWSER_WORKERS) -m browser $(PYTEST_ARGS) || [ $$? -eq 5 ]
 
 # The same suite on PostgreSQL (starts a throwaway server when none answers on 5432).
 test-postgres: install
