@@ -83,12 +83,16 @@ def make_engine(url: str) -> Engine:
         path = url.split("///", 1)[-1]
         if path and path != ":memory:":
             Path(path).parent.mkdir(parents=True, exist_ok=True)
-        # No pool: a SQLite connection costs microseconds to open, and a pool that runs dry
-        # can stall a request that waits for a connection on the event loop.
+        # Pooled: opening a connection and its four PRAGMAs cost a write ~8 % of its time,
+        # inside the write gate. The overflow is unbounded so the pool never runs dry (a
+        # request waiting for a connection on the event loop would stall every other one);
+        # past pool_size, connections are closed when returned.
         engine = sa.create_engine(
             url,
             connect_args={"check_same_thread": False, "timeout": 10},
-            poolclass=sa.pool.NullPool,
+            poolclass=sa.pool.QueuePool,
+            pool_size=20,
+            max_overflow=-1,
         )
         sa.event.listen(engine, "connect", _sqlite_pragmas)
         sa.event.listen(engine, "begin", _sqlite_begin)

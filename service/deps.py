@@ -7,9 +7,11 @@ carry the session's CSRF token (header `X-CSRF-Token`, or form field `csrf_token
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import hmac
 import weakref
 from collections.abc import AsyncIterator, Callable, Iterator
+from dataclasses import dataclass
 from typing import Annotated, Any
 
 from fastapi import Depends, Request, Response
@@ -36,16 +38,58 @@ _write_gates: weakref.WeakKeyDictionary[asyncio.AbstractEventLoop, asyncio.Lock]
 )
 
 
+@dataclass(frozen=True)
+class Credentials:
+    """What a request presented (bearer token or session cookie) and the live token and user
+    it names, or None when it names none."""
+
+    bearer: bool
+    found: tuple[AccessToken, User] | None
+
+
+def look_up_credentials(session: Session, request: Request) -> Credentials | None:
+    """The request's credentials looked up (None when it presents none); no rule applied."""
+    header = request.headers.get("authorization", "")
+    if header.lower().startswith("bearer "):
+        found = find_live_token(session, header[7:].strip(), kind=TokenKind.API)
+        return Credentials(bearer=True, found=found)
+    raw = _cookie_token(request)
+    if raw is None:
+        return None
+    return Credentials(bearer=False, found=find_live_token(session, raw, kind=TokenKind.SESSION))
+
+
+def _look_up_in_own_read(request: Request) -> Credentials | None:
+    with session_scope() as session:
+        return look_up_credentials(session, request)
+
+
+async def _receive_body(request: Request) -> None:
+    """Receive the whole body now (cached on the request for the route), unless the route's
+    declared body parameters already did."""
+    with contextlib.suppress(RuntimeError):  # "Stream consumed": the form was parsed already
+        await request.body()
+
+
 async def write_gate(request: Request) -> AsyncIterator[None]:
     """On SQLite, let one writing request per process at a time reach the database.
 
     SQLite has one writer. Without this gate every writing request takes a worker thread and
     waits there for the write lock (BEGIN IMMEDIATE); past the thread pool's size the lock
     holder cannot get a thread to finish, and everything stalls until the busy timeout. Here
-    writers queue on the event loop instead, holding no thread and no connection."""
+    writers queue on the event loop instead, holding no thread and no connection.
+
+    What does not need the lock is done before the gate, so it does not hold up the writers
+    queued behind: the body is received (a slow tablet's upload), and the credentials are
+    looked up in a read of their own (authenticate then uses them)."""
     if request.method in SAFE_METHODS or not get_settings().is_sqlite:
         yield
         return
+    await _receive_body(request)
+    if "authorization" in request.headers or SESSION_COOKIE in request.cookies:
+        request.state.credentials = await run_in_threadpool(_look_up_in_own_read, request)
+    else:
+        request.state.credentials = None
     loop = asyncio.get_running_loop()
     gate = _write_gates.get(loop)
     if gate is None:
@@ -129,23 +173,25 @@ async def _csrf_ok(request: Request, token: AccessToken) -> bool:
 
 async def authenticate(request: Request, session: SessionDep) -> tuple[User, AccessToken] | None:
     """The user behind this request and the token that proved it, or None if anonymous."""
-    header = request.headers.get("authorization", "")
-    if header.lower().startswith("bearer "):
-        found = await run_in_threadpool(
-            find_live_token, session, header[7:].strip(), kind=TokenKind.API
-        )
-        if found is None:
+    if hasattr(request.state, "credentials"):  # looked up before the write gate
+        credentials: Credentials | None = request.state.credentials
+        if credentials is not None and credentials.found is not None:
+            # Into this request's session, without a query (they were read a moment ago).
+            token, user = credentials.found
+            found = (session.merge(token, load=False), session.merge(user, load=False))
+            credentials = Credentials(bearer=credentials.bearer, found=found)
+    else:
+        # Database work stays off the event loop (a blocked loop stalls every request).
+        credentials = await run_in_threadpool(look_up_credentials, session, request)
+    if credentials is None:
+        return None
+    if credentials.found is None:
+        if credentials.bearer:
             raise NotAuthenticated("the bearer token is unknown, expired or revoked")
-        token, user = found
+        return None
+    token, user = credentials.found
+    if credentials.bearer:
         return user, token
-    raw = _cookie_token(request)
-    if raw is None:
-        return None
-    # Database work stays off the event loop (a blocked loop stalls every request).
-    found = await run_in_threadpool(find_live_token, session, raw, kind=TokenKind.SESSION)
-    if found is None:
-        return None
-    token, user = found
     if request.method not in SAFE_METHODS and not await _csrf_ok(request, token):
         raise PermissionDenied(
             "CSRF token missing or wrong: reload the page and try again "

@@ -31,9 +31,12 @@ PHONE = {"width": 390, "height": 844}
 
 
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
-    # A browser step that never answers (seen once in about twenty runs, inside Chromium)
-    # fails after 180 s instead of hanging the run, and a failed browser test is tried twice
-    # more: a real fault fails all three tries, a stalled browser does not sink CI.
+    # A browser step that never answers (seen once in about twenty runs, in the full-flow
+    # test; not reproduced in 20 lone runs of it and 5 runs of the browser group here) fails
+    # after 180 s instead of hanging the run, and a failed browser test is tried twice more: a
+    # real fault fails all three tries, a stalled browser does not sink CI. At 150 s the
+    # faulthandler_timeout of pyproject.toml prints every thread's stack first, so the next
+    # stall shows its cause.
     for item in items:
         if "browser" in item.keywords:
             item.add_marker(pytest.mark.timeout(180, method="signal"))
