@@ -5,8 +5,12 @@ The one public path used by the API and the workflow::
     inp = parse_request(payload)        # contract-shaped dict -> validated SI dataclasses
     res = reduce(inp)                   # -> frozen ReductionResult
     body = result_to_dict(res)          # -> the contract's response JSON
+
+What a request may carry (each method's entries, labels, units, examples and standards) is
+declared once in :mod:`service.engine.catalogue`.
 """
 
+from service.engine import catalogue
 from service.engine.errors import EngineInputError, InputProblem
 from service.engine.model import ReductionInput, ReductionResult
 from service.engine.parse import parse_request
@@ -19,6 +23,7 @@ __all__ = [
     "InputProblem",
     "ReductionInput",
     "ReductionResult",
+    "catalogue",
     "parse_request",
     "reduce",
     "result_to_dict",

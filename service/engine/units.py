@@ -26,12 +26,21 @@ Q_ = ureg.Quantity
 
 @dataclass(frozen=True, slots=True)
 class Kind:
-    """A physical kind of input: its dimensionality, canonical unit and an example for messages."""
+    """A kind of input: its dimensionality, canonical unit and examples for messages.
+
+    Besides physical quantities, three kinds describe entries that carry no unit: a yes/no
+    flag, a choice among listed words, and free text.
+    """
 
     name: str
     canonical_unit: str
     dimensionality: str
     examples: str
+
+    @property
+    def is_quantity(self) -> bool:
+        """Whether values of this kind are numbers (with a unit unless dimensionless)."""
+        return self.dimensionality not in NOT_QUANTITIES
 
 
 LENGTH = Kind("length", "m", "[length]", "'12.5 cm', '125 mm' or '4.9 in'")
@@ -55,6 +64,10 @@ UNIT_WEIGHT = Kind(
 )
 FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' or 0.185")
 NUMBER = Kind("number", "", "dimensionless", "a plain number such as 2.70")
+FLAG = Kind("yes or no", "", "flag", "true or false")
+CHOICE = Kind("choice", "", "choice", "one of the listed words")
+TEXT = Kind("text", "", "text", "a short text")
+NOT_QUANTITIES = frozenset({"flag", "choice", "text"})
 
 _NUMBER_THEN_UNIT = re.compile(r"^\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 _LONG_DIGITS = re.compile(r"\d{3,}")
