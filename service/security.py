@@ -31,13 +31,13 @@ from typing import Any
 import sqlalchemy as sa
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse, Response
+from fastapi.responses import Response
 from starlette.datastructures import Headers, MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service.config import get_settings
-from service.errors import ServiceError, TooManyAttempts
+from service.errors import ServiceError, TooLarge, TooManyAttempts
 
 Handler = Callable[[Request, Any], Response | Awaitable[Response]]
 
@@ -388,20 +388,14 @@ def install_security(app: FastAPI) -> None:
     async def too_large(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, RequestBodyTooLarge)
         if _is_api(request):
-            return JSONResponse(
-                {
-                    "error": "too_large",
-                    "detail": exc.detail,
-                    "context": {"limit_bytes": exc.limit},
-                },
-                status_code=413,
-            )
+            refusal = TooLarge(str(exc.detail), detail={"limit_bytes": exc.limit})
+            return await _call(_lookup(app, ServiceError), request, refusal)
         return await _call(_lookup(app, StarletteHTTPException), request, exc)
 
     async def too_many(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, TooManyAttempts)
         response = await _call(_lookup(app, ServiceError, skip=too_many), request, exc)
-        wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
+        wait = exc.detail.get("retry_after_seconds")
         if isinstance(wait, int | float) and math.isfinite(wait) and wait > 0:
             response.headers["Retry-After"] = str(math.ceil(wait))
         return response

@@ -11,6 +11,7 @@ from fastapi.responses import Response
 from pydantic import BaseModel, Field
 from sqlmodel import Session
 
+from service.api.paging import Paging
 from service.certificates.models import Certificate
 from service.certificates.service import (
     CertificateStatus,
@@ -27,6 +28,7 @@ from service.certificates.service import (
 from service.config import get_settings
 from service.deps import CurrentUser, Reviewer, SessionDep
 from service.exchange.files import read_limited
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1/certificates", tags=["certificates"])
 
@@ -180,16 +182,20 @@ def issue_for_project(
     return certificate_read(session, certificate)
 
 
-@router.get("", response_model=list[CertificateRead])
+@router.get("", response_model=Page[CertificateRead])
 def list_visible(
     session: SessionDep,
     user: CurrentUser,
+    paging: Paging,
     project_id: Annotated[int | None, Query()] = None,
     sample_id: Annotated[int | None, Query()] = None,
-) -> list[CertificateRead]:
-    """Certificates you may see, for a project or a sample; clients see their own only."""
-    certificates = list_certificates(session, user=user, project_id=project_id, sample_id=sample_id)
-    return [certificate_read(session, c) for c in certificates]
+) -> Page[CertificateRead]:
+    """Certificates you may see, for a project or a sample; clients see their own only
+    (another organisation's project or sample answers 404)."""
+    rows, total = list_certificates(
+        session, user=user, project_id=project_id, sample_id=sample_id, **paging.window
+    )
+    return paging.of(rows, total, lambda c: certificate_read(session, c))
 
 
 @router.get("/{certificate_id}", response_model=CertificateRead)

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlmodel import Session, col, select
+from sqlmodel import Session, col, func, select
 
 from service.access import get_visible, is_client
 from service.accounts.models import User
@@ -27,6 +27,7 @@ from service.db import utcnow
 from service.errors import InvalidInput, InvalidTransition, NotFound, PermissionDenied
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.service import mark_issued
+from service.paging import MAX_LIMIT, paginate
 from service.projects.models import Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -345,8 +346,11 @@ def list_certificates(
     user: User,
     project_id: int | None = None,
     sample_id: int | None = None,
-) -> list[Certificate]:
-    """Certificates the user may see, narrowed to a project or a sample (404 if not visible)."""
+    limit: int = MAX_LIMIT,
+    offset: int = 0,
+) -> tuple[list[Certificate], int]:
+    """One page of the certificates the user may see, narrowed to a project or a sample
+    (404 if that is not visible), and how many there are."""
     query = select(Certificate).join(Project, col(Project.id) == col(Certificate.project_id))
     if project_id is not None:
         get_visible(session, Project, project_id, user, "project")
@@ -357,7 +361,32 @@ def list_certificates(
     if is_client(user):
         query = query.where(Project.client_id == user.organisation_id)
     query = query.order_by(col(Certificate.number), col(Certificate.revision))
-    return list(session.exec(query).all())
+    return paginate(session, query, limit=limit, offset=offset)
+
+
+def current_certificates(session: Session, sample_ids: Sequence[int]) -> dict[int, Certificate]:
+    """Each sample's certificate in force (state issued)."""
+    if not sample_ids:
+        return {}
+    found = session.exec(
+        select(Certificate).where(
+            col(Certificate.sample_id).in_(list(sample_ids)),
+            Certificate.state == CertificateState.ISSUED,
+        )
+    ).all()
+    return {c.sample_id: c for c in found if c.sample_id is not None}
+
+
+def tests_per_certificate(session: Session, certificate_ids: Sequence[int]) -> dict[int, int]:
+    """How many tests each certificate reports."""
+    if not certificate_ids:
+        return {}
+    rows = session.exec(
+        select(CertificateTest.certificate_id, func.count())
+        .where(col(CertificateTest.certificate_id).in_(list(certificate_ids)))
+        .group_by(col(CertificateTest.certificate_id))
+    ).all()
+    return {certificate_id: int(count) for certificate_id, count in rows}
 
 
 def get_certificate(session: Session, certificate_id: int, *, user: User) -> Certificate:

@@ -13,7 +13,7 @@ declared once in :mod:`service.engine.catalogue`.
 from service.engine import catalogue
 from service.engine.errors import EngineInputError, InputProblem
 from service.engine.model import ReductionInput, ReductionResult
-from service.engine.parse import parse_request
+from service.engine.parse import Read, parse_request, read_request
 from service.engine.pipeline import reduce, result_to_dict
 from service.engine.version import ENGINE_VERSION
 
@@ -21,10 +21,12 @@ __all__ = [
     "ENGINE_VERSION",
     "EngineInputError",
     "InputProblem",
+    "Read",
     "ReductionInput",
     "ReductionResult",
     "catalogue",
     "parse_request",
+    "read_request",
     "reduce",
     "result_to_dict",
 ]

@@ -112,6 +112,11 @@ class Entry:
         The accepted words of a choice.
     on_forms : bool
         Offered on the page forms (False: accepted by the API, not asked for on a page).
+    replaces : str
+        The entry this one is used in place of when given (the length after consolidation
+        replaces the length as prepared in the reduction).
+    hint : str
+        A few words a form shows beside the field ("flexible wall").
     """
 
     id: str
@@ -128,11 +133,28 @@ class Entry:
     resolution: str = ""
     choices: tuple[str, ...] = ()
     on_forms: bool = True
+    replaces: str = ""
+    hint: str = ""
 
     @property
     def is_quantity(self) -> bool:
         """Whether the entry is a number (with a unit unless dimensionless)."""
         return self.kind.is_quantity
+
+    @property
+    def is_flag(self) -> bool:
+        """A yes/no entry."""
+        return self.kind is units.FLAG
+
+    @property
+    def is_text(self) -> bool:
+        """A free-text entry."""
+        return self.kind is units.TEXT
+
+    @property
+    def is_number(self) -> bool:
+        """A plain number without a unit (a specific gravity, a B-value)."""
+        return self.kind is units.NUMBER
 
     @property
     def noun(self) -> str:
@@ -336,9 +358,11 @@ SPECIMEN: tuple[Entry, ...] = (
           on_forms=False,
           help="Declared stiff: a B-value that stops rising with back pressure may be accepted."),
     _q("final_diameter", L, S, "Diameter after consolidation", "7.08 cm", "2.79 in",
-       unit=("cm", "in"), help="Flexible wall: diameter at permeation; replaces the diameter."),
+       unit=("cm", "in"), replaces="diameter", hint="flexible wall",
+       help="Flexible wall: diameter at permeation; replaces the diameter."),
     _q("final_length", L, S, "Length after consolidation", "11.52 cm", "4.54 in",
-       unit=("cm", "in"), help="Flexible wall: length at permeation; replaces the length."),
+       unit=("cm", "in"), replaces="length", hint="flexible wall",
+       help="Flexible wall: length at permeation; replaces the length."),
 )
 # fmt: on
 SPECIMEN_NEEDS = (Need(("diameter", "area")),)
@@ -374,7 +398,7 @@ TRIAL: tuple[Entry, ...] = (
     _q("water_mass", units.MASS, TR, "Water mass collected", "354.2 g", si_field="water_mass_kg",
        unit=("g", "g"), symbol="m_w", resolution="0.01 g"),
     _q("duration", units.DURATION, TR, "Duration", "3600 s", si_field="duration_s",
-       unit=("s", "s"), symbol="t", resolution="0.1 s"),
+       unit=("s", "s"), symbol="t", resolution="0.1 s", hint="or use the stopwatch"),
     _q("head_difference", L, TR, "Head difference", "4.50 cm", "1.77 in",
        si_field="head_difference_m", unit=("cm", "in"), symbol="Δh", resolution="1 mm"),
     _q("pressure_difference", units.PRESSURE, TR, "Pressure difference", "35 kPa", "5.1 psi",
@@ -392,7 +416,8 @@ TRIAL: tuple[Entry, ...] = (
        si_field="flow_rate_m3_per_s", unit=("mL/min", "mL/min"), symbol="q"),
     _q("temperature", units.TEMPERATURE, TR, "Temperature", "21.5 degC", "70.7 degF",
        si_field="temperature_c", unit=("degC", "degF"), symbol="T", positive=False,
-       resolution="0.1 K", help="Permeant temperature; without it k is not corrected."),
+       resolution="0.1 K", hint="or 70 degF",
+       help="Permeant temperature; without it k is not corrected."),
 )
 # fmt: on
 # fmt: off
@@ -454,7 +479,8 @@ TEST: tuple[Entry, ...] = (
     Entry("permeant", units.TEXT, T, "Permeant", example="de-aired tap water",
           help="The liquid passed through the specimen."),
     _q("cell_pressure", units.PRESSURE, T, "Cell pressure", "550 kPa", "80 psi",
-       unit=("kPa", "psi"), positive=False, help="Flexible wall: the cell pressure."),
+       unit=("kPa", "psi"), positive=False, hint="flexible wall",
+       help="Flexible wall: the cell pressure."),
     _q("back_pressure", units.PRESSURE, T, "Back pressure", "515 kPa", "75 psi",
        unit=("kPa", "psi"), positive=False, help="Flexible wall: the back pressure."),
     _q("effective_confining", units.PRESSURE, T, "Effective confining pressure", "35 kPa",

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Collection, Mapping
+from dataclasses import dataclass
 from typing import Any
 
 from service.engine import catalogue, units
@@ -76,6 +77,7 @@ class _Reader:
 
     def __init__(self, default_uncertainties: Mapping[str, Any] | None) -> None:
         self.problems: list[InputProblem] = []
+        self.values: dict[Loc, float] = {}  # every quantity read, by its location, in SI
         self._defaults_raw = dict(default_uncertainties or {})
         self._defaults: dict[str, float | None] = {}
         for key in self._defaults_raw:
@@ -133,17 +135,24 @@ class _Reader:
         name: str,
         loc: Loc,
         table: Mapping[str, tuple[units.Kind, str, bool]],
+        *,
+        u_as: str = "",
     ) -> tuple[float, float | None] | None:
+        """The quantity ``name`` of ``data`` (SI value, u) or None; ``u_as`` names the field
+        whose default uncertainty applies (by default its own)."""
         if name not in data:
             return None
         kind, _, positive = table[name]
+        default_u = self.default_u(u_as or name)
         try:
-            return units.parse_quantity(
-                data[name], kind, (*loc, name), positive=positive, default_u=self.default_u(name)
+            got = units.parse_quantity(
+                data[name], kind, (*loc, name), positive=positive, default_u=default_u
             )
         except EngineInputError as exc:
             self.problems.extend(exc.problems)
             return None
+        self.values[(*loc, name)] = got[0]
+        return got
 
     def choice(
         self, data: Mapping[str, Any], name: str, loc: Loc, accepted: tuple[Any, ...], default: Any
@@ -248,10 +257,11 @@ def _area(
     table: Table,
     *,
     circle: bool = True,
+    u_as: str = "",
 ) -> tuple[float, float, float | None] | None:
     """(the value in SI, what it gives, its u): a length given for an area (``circle``) is a
     diameter and gives the circle's area; anything else gives itself."""
-    got = reader.quantity(data, name, loc, table)
+    got = reader.quantity(data, name, loc, table, u_as=u_as)
     if got is None:
         return None
     value, u_value = got
@@ -263,7 +273,7 @@ def _area(
 
 def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str, float]]:
     loc: Loc = ("specimen",)
-    allowed = {e.id for e in catalogue.entries(Scope.SPECIMEN) if e.si_field}
+    allowed = {e.id for e in catalogue.entries(Scope.SPECIMEN) if e.si_field or e.replaces}
     data = reader.section(raw, loc, allowed)
     values: dict[str, Any] = {}
     u: dict[str, float] = {}
@@ -289,6 +299,27 @@ def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str,
             u["area_m2"] = size[2]
         if name == "diameter":
             values["diameter_m"] = size[0]
+    # A value that replaces another (the length after consolidation replaces the length as
+    # prepared) is reduced in its place; the one it replaces is checked and kept as read.
+    for item in catalogue.entries(Scope.SPECIMEN):
+        if not (item.replaces and item.id in data):
+            continue
+        table = {item.id: (item.kind, "", item.positive)}
+        if item.replaces == "diameter":
+            size = _area(reader, data, loc, item.id, table, u_as=item.replaces)
+            if size is not None:
+                values["diameter_m"], values["area_m2"] = size[0], size[1]
+                u.pop("area_m2", None)
+                if size[2] is not None:
+                    u["area_m2"] = size[2]
+        else:
+            field_name = SPECIMEN_FIELDS[item.replaces][1]
+            got = reader.quantity(data, item.id, loc, table, u_as=item.replaces)
+            if got is not None:
+                values[field_name] = got[0]
+                u.pop(field_name, None)
+                if got[1] is not None:
+                    u[field_name] = got[1]
     w = values.get("water_content")
     if w is not None and w > 10.0:
         reader.add(
@@ -445,6 +476,15 @@ def _read_readings(reader: _Reader, raw: Any, loc: Loc) -> tuple[Reading, ...] |
                 reader.add(
                     (*rloc, name), None, READING_FIELDS[name][0].examples, "is required", "missing"
                 )
+        if t is not None and t[0] < 0.0:
+            reader.add(
+                (*rloc, "time"),
+                data["time"],
+                "a time from the start of the run, zero or later, such as '0 s' or '10 min'",
+                "is before the start of the run",
+                "negative",
+            )
+            t = None
         if t is None or h is None:
             ok = False
             continue
@@ -551,8 +591,49 @@ def _read_trial(
     return Trial(**values, u=u)
 
 
-def parse_request(
+@dataclass(frozen=True, slots=True)
+class Read:
+    """What :func:`read_request` made of a request.
+
+    Attributes
+    ----------
+    input : ReductionInput or None
+        The validated input; None when anything was refused.
+    problems : tuple of InputProblem
+        Every refusal, in the order found.
+    values : mapping
+        Each quantity read, by its location in the request, in SI (also when other fields
+        were refused), e.g. ``{("trials", 0, "duration"): 3600.0}``: a caller storing what
+        was typed takes its SI figures from here instead of parsing the text again.
+    """
+
+    input: ReductionInput | None
+    problems: tuple[InputProblem, ...]
+    values: Mapping[Loc, float]
+
+
+def read_request(
     payload: Mapping[str, Any], default_uncertainties: Mapping[str, Any] | None = None
+) -> Read:
+    """Validate a request like :func:`parse_request`, returning the refusals instead of raising.
+
+    Returns
+    -------
+    Read
+        The input (None if refused), every refusal, and the SI figure of each quantity read.
+    """
+    try:
+        values: dict[Loc, float] = {}
+        return Read(parse_request(payload, default_uncertainties, _values=values), (), values)
+    except EngineInputError as exc:
+        return Read(None, exc.problems, values)
+
+
+def parse_request(
+    payload: Mapping[str, Any],
+    default_uncertainties: Mapping[str, Any] | None = None,
+    *,
+    _values: dict[Loc, float] | None = None,
 ) -> ReductionInput:
     """Validate a contract-shaped request and convert it to SI.
 
@@ -579,6 +660,8 @@ def parse_request(
     if not isinstance(payload, Mapping):
         raise EngineInputError.single((), payload, "a JSON object", "is not an object", "bad_type")
     reader = _Reader(default_uncertainties)
+    if _values is not None:
+        reader.values = _values
     for key in payload:
         if key not in TOP_KEYS:
             reader.add(

@@ -63,7 +63,7 @@ UNIT_WEIGHT = Kind(
     "unit weight", "N/m**3", "[mass]/[length]**2/[time]**2", "'9.79 kN/m**3' or '62.3 lbf/ft**3'"
 )
 FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' or 0.185")
-NUMBER = Kind("number", "", "dimensionless", "a plain number such as 2.70")
+NUMBER = Kind("number", "", "dimensionless", "2.70 or 0.96 (no unit)")
 FLAG = Kind("yes or no", "", "flag", "true or false")
 CHOICE = Kind("choice", "", "choice", "one of the listed words")
 TEXT = Kind("text", "", "text", "a short text")
