@@ -28,6 +28,7 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from service.errors import (
@@ -138,9 +139,62 @@ def http_error_response(request: Request, exc: StarletteHTTPException) -> JSONRe
     return problem_response(request, refusal, headers=exc.headers)
 
 
+class FieldError(BaseModel):
+    """One refused field of a 422."""
+
+    loc: list[str | int] = Field(description="its path: body, query, path, header or file")
+    field: str = Field(description="the same as text, e.g. trials[2].head_final")
+    label: str = Field(description="the field in words with its position")
+    msg: str = Field(description="label: why it is refused")
+    value: Any = Field(None, description="what was sent, cut to 200 characters")
+    accepted: str = Field("", description="what the field takes")
+    type: str = Field(description="a category, e.g. missing, wrong_dimension, impossible_test")
+
+
+class Problem(BaseModel):
+    """RFC 9457 problem details, the answer to every refusal of the API."""
+
+    type: str = Field(description="a URI reference naming the kind of problem")
+    title: str
+    status: int
+    detail: str = Field(description="one sentence for people")
+    instance: str = Field(description="the path that was refused")
+    code: str = Field(description="the kind of problem, for programs")
+    errors: list[FieldError] | None = Field(None, description="422: one item per field")
+
+
+def _document(app: FastAPI) -> None:
+    """Describe every 4xx answer of the OpenAPI document as problem details."""
+    plain = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is not None:
+            return app.openapi_schema
+        schema = plain()
+        components = schema.setdefault("components", {}).setdefault("schemas", {})
+        for model in (FieldError, Problem):
+            components[model.__name__] = model.model_json_schema(
+                ref_template="#/components/schemas/{model}"
+            )
+        components.pop("HTTPValidationError", None)
+        components.pop("ValidationError", None)
+        content = {MEDIA_TYPE: {"schema": {"$ref": "#/components/schemas/Problem"}}}
+        for path in schema.get("paths", {}).values():
+            for operation in path.values():
+                for status, answer in operation.get("responses", {}).items():
+                    if str(status).startswith("4"):
+                        answer["content"] = content
+                        answer.setdefault("description", "Problem details")
+        app.openapi_schema = schema
+        return schema
+
+    app.openapi = openapi  # type: ignore[method-assign]
+
+
 def install_problem_details(app: FastAPI) -> None:
     """Answer every refusal of the app as problem details (the pages wrap these handlers for
-    their own paths; call this first)."""
+    their own paths; call this first), and document them so in the OpenAPI description."""
+    _document(app)
 
     async def on_service_error(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, ServiceError)

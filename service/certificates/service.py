@@ -25,8 +25,8 @@ from service.certificates.signing import load_signing_key, sha256_hex, verify_si
 from service.common import CertificateKind, CertificateState, Role, SignOffMeaning, TestState
 from service.db import utcnow
 from service.errors import InvalidInput, InvalidTransition, NotFound, PermissionDenied
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.service import mark_issued
 from service.paging import MAX_LIMIT, paginate
 from service.projects.models import Project
 from service.samples.models import Sample
@@ -217,7 +217,7 @@ def issue_sample_certificate(
     reported = {t.id for t in tests}
     for test in newly_approved:
         assert test.id is not None
-        mark_issued(session, test.id, actor=actor)  # the lifecycle's approved -> issued
+        lab_tests.mark_issued(session, test.id, actor=actor)  # the lifecycle's approved -> issued
         _sign_issued(session, test, actor, certificate, now)
     # Revisions replaced by a correction on this certificate stop being current.
     for test in all_tests:

@@ -19,7 +19,7 @@ from service.audit.models import AuditEvent
 from service.common import ApparatusKind
 from service.engine import ENGINE_VERSION
 from service.idempotency.models import IdempotencyRecord
-from service.lab_tests import service
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest, Reading, Trial
 from service.signoffs.models import SignOff
 from tests.lab_tests.conftest import PASSWORD, Lab, make_apparatus
@@ -438,7 +438,7 @@ def test_send_back_needs_a_reason(lab: Lab) -> None:
 
 def test_a_correction_creates_revision_2_and_the_old_test_points_to_it(lab: Lab) -> None:
     old_id = approved_cv2(lab)
-    service.mark_issued(lab.session, old_id, actor=lab.manager)
+    lab_tests.mark_issued(lab.session, old_id, actor=lab.manager)
     lab.session.commit()
     reason = "Specimen length transcribed as 11.60 cm; the datasheet reads 11.06 cm."
     created = lab.client.post(
