@@ -14,17 +14,15 @@ from service.engine.errors import EngineInputError
 from service.errors import FieldProblem, InvalidInput, Loc, invalid
 
 Kind = units.Kind
-AREA = units.AREA
-CONDUCTIVITY = units.CONDUCTIVITY
-DENSITY = units.DENSITY
-DURATION = units.DURATION
-FRACTION = units.FRACTION
-LENGTH = units.LENGTH
-MASS = units.MASS
-PRESSURE = units.PRESSURE
-TEMPERATURE = units.TEMPERATURE
-TIME = units.TIME
-VOLUME = units.VOLUME
+# The kinds the features type (units: service/engine/units.py).
+AREA, CONDUCTIVITY, DENSITY, DURATION = (
+    units.AREA,
+    units.CONDUCTIVITY,
+    units.DENSITY,
+    units.DURATION,
+)
+FRACTION, LENGTH, MASS, PRESSURE = units.FRACTION, units.LENGTH, units.MASS, units.PRESSURE
+TEMPERATURE, TIME, VOLUME = units.TEMPERATURE, units.TIME, units.VOLUME
 
 __all__ = [
     "AREA",

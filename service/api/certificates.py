@@ -4,9 +4,9 @@ public verification twins of the /verify page."""
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Annotated
+from typing import Annotated, Any
 
-from fastapi import APIRouter, File, Query, UploadFile, status
+from fastapi import APIRouter, File, Query, UploadFile
 from fastapi.responses import Response
 from pydantic import BaseModel, Field
 from sqlmodel import Session
@@ -152,34 +152,29 @@ async def verify_upload(
     )
 
 
-@router.post(
-    "/samples/{sample_id}",
-    response_model=CertificateRead,
-    status_code=status.HTTP_201_CREATED,
-)
+ISSUED: dict[str, Any] = {"response_model": CertificateRead, "status_code": 201}
+
+
+@router.post("/samples/{sample_id}", **ISSUED)
 def issue_for_sample(
     sample_id: int, session: SessionDep, user: Reviewer, body: IssueRequest | None = None
 ) -> CertificateRead:
     """Issue the sample's certificate (or its next revision) from its approved tests."""
-    certificate = issue_sample_certificate(
-        session, sample_id, actor=user, reason=body.reason if body else ""
+    reason = body.reason if body else ""
+    return certificate_read(
+        session, issue_sample_certificate(session, sample_id, actor=user, reason=reason)
     )
-    return certificate_read(session, certificate)
 
 
-@router.post(
-    "/projects/{project_id}",
-    response_model=CertificateRead,
-    status_code=status.HTTP_201_CREATED,
-)
+@router.post("/projects/{project_id}", **ISSUED)
 def issue_for_project(
     project_id: int, session: SessionDep, user: Reviewer, body: IssueRequest | None = None
 ) -> CertificateRead:
     """Issue a project summary of every currently issued test (or its next revision)."""
-    certificate = issue_project_certificate(
-        session, project_id, actor=user, reason=body.reason if body else ""
+    reason = body.reason if body else ""
+    return certificate_read(
+        session, issue_project_certificate(session, project_id, actor=user, reason=reason)
     )
-    return certificate_read(session, certificate)
 
 
 @router.get("", response_model=Page[CertificateRead])

@@ -13,6 +13,7 @@ from service.config import get_settings
 from service.deps import LabStaff, Reception, SessionDep
 from service.exchange.files import read_limited, read_table
 from service.exchange.imports import (
+    ReadingsImport,
     check_schedule,
     parse_readings,
     preview_readings,
@@ -43,6 +44,19 @@ async def _table(file: UploadFile) -> Any:
     return read_table(data, file.filename or "", field="file")
 
 
+async def _readings(
+    file: UploadFile, time_column: str, head_column: str, time_unit: str, head_unit: str
+) -> ReadingsImport:
+    table = await _table(file)
+    return parse_readings(
+        table,
+        time_column=time_column,
+        head_column=head_column,
+        time_unit=time_unit,
+        head_unit=head_unit,
+    )
+
+
 @router.post("/readings/preview", response_model=ReadingsPreview)
 async def preview_readings_file(
     file: Annotated[UploadFile, File(description="CSV with a header row")],
@@ -59,14 +73,8 @@ async def preview_readings_file(
 
     Stores nothing: `trial` is the run in the contract's shape, ready to be recorded with the
     test's trials endpoint. Refusals name the file's row and column."""
-    table = await _table(file)
-    imported = parse_readings(
-        table,
-        time_column=time_column,
-        head_column=head_column,
-        time_unit=time_unit,
-        head_unit=head_unit,
-    )
+    columns = (time_column, head_column, time_unit, head_unit)
+    imported = await _readings(file, *columns)
     return preview_readings(session, test_id, imported, temperature=temperature, user=user)
 
 
@@ -85,14 +93,7 @@ async def record_readings_file(
 ) -> TrialWritten:
     """Record the imported run as a new trial of the test (as the trials endpoint does:
     `Idempotency-Key` required, a retry answers the first response and stores nothing)."""
-    table = await _table(file)
-    imported = parse_readings(
-        table,
-        time_column=time_column,
-        head_column=head_column,
-        time_unit=time_unit,
-        head_unit=head_unit,
-    )
+    imported = await _readings(file, time_column, head_column, time_unit, head_unit)
     return save_readings(
         session,
         test_id,

@@ -23,7 +23,7 @@ given from memory and name the documents, they do not quote them.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 from typing import Any
@@ -514,13 +514,15 @@ STANDARDS: tuple[Standard, ...] = (
 # fmt: on
 
 FALLING_RUN = ("head_initial", "head_final", "duration")
+FLOWS = ("inflow_volume", "outflow_volume")
+# fmt: off
 METHODS: tuple[Method, ...] = (
     Method(
         id="falling_head",
         name="Falling head, constant tailwater",
         short_name="Falling head",
         summary="The head in a standpipe falls through the specimen to a constant tailwater.",
-        trial=("head_initial", "head_final", "duration", "temperature"),
+        trial=(*FALLING_RUN, "temperature"),
         needs=(Need(("head_initial",)), Need(("head_final",)), Need(("duration",))),
         apparatus=("standpipe_diameter", "standpipe_area"),
         apparatus_needs=(Need(("standpipe_area", "standpipe_diameter")),),
@@ -534,18 +536,9 @@ METHODS: tuple[Method, ...] = (
         short_name="Rising tailwater",
         summary="Headwater and tailwater burettes of their own areas: the head difference "
         "falls as one burette empties and the other fills.",
-        trial=(
-            "head_initial",
-            "head_final",
-            "duration",
-            "inflow_volume",
-            "outflow_volume",
-            "temperature",
-        ),
+        trial=(*FALLING_RUN, *FLOWS, "temperature"),
         needs=(
-            Need(("head_initial",)),
-            Need(("duration",)),
-            Need(("head_final",), or_all=("inflow_volume", "outflow_volume")),
+            Need(("head_initial",)), Need(("duration",)), Need(("head_final",), or_all=FLOWS),
         ),
         apparatus=("headwater_area", "tailwater_area"),
         apparatus_needs=(
@@ -562,19 +555,13 @@ METHODS: tuple[Method, ...] = (
         short_name="Constant head",
         summary="Water collected over a timed interval under a constant head difference.",
         trial=(
-            "volume",
-            "water_mass",
-            "duration",
-            "head_difference",
-            "pressure_difference",
-            "inflow_volume",
-            "outflow_volume",
-            "temperature",
+            "volume", "water_mass", "duration", "head_difference", "pressure_difference",
+            *FLOWS, "temperature",
         ),
         needs=(
             Need(("duration",)),
             Need(("head_difference", "pressure_difference")),
-            Need(("volume", "water_mass"), or_all=("inflow_volume", "outflow_volume")),
+            Need(("volume", "water_mass"), or_all=FLOWS),
         ),
         apparatus=("manometer_spacing",),
         standards=(D2434, D5084, D5856, ISO),
@@ -584,18 +571,12 @@ METHODS: tuple[Method, ...] = (
         name="Constant rate of flow",
         short_name="Constant rate",
         summary="A pump drives a constant flow rate; the pressure difference it needs is read.",
-        trial=(
-            "flow_rate",
-            "pressure_difference",
-            "head_difference",
-            "inflow_volume",
-            "outflow_volume",
-            "temperature",
-        ),
+        trial=("flow_rate", "pressure_difference", "head_difference", *FLOWS, "temperature"),
         needs=(Need(("flow_rate",)), Need(("pressure_difference", "head_difference"))),
         standards=(D5084, D5856, ISO),
     ),
 )
+# fmt: on
 # Entries a method accepts that the page forms do not ask for (the API takes them).
 FORM_QUIET: dict[str, frozenset[str]] = {
     "constant_head": frozenset({"pressure_difference", "inflow_volume", "outflow_volume"}),
@@ -641,11 +622,6 @@ def _entry_anywhere(entry_id: str) -> Entry | None:
 def _noun(entry_id: str) -> str:
     found = _entry_anywhere(entry_id)
     return found.noun if found is not None else entry_id.replace("_", " ")
-
-
-def uniq(values: Iterable[str]) -> tuple[str, ...]:
-    """``values`` without repeats, first occurrence kept."""
-    return tuple(dict.fromkeys(values))
 
 
 def need_text(need: Need) -> str:
@@ -768,10 +744,6 @@ def label_of(loc: Sequence[str | int], numbers: Sequence[int] | None = None) -> 
 # --- examples for the API documentation ----------------------------------------------------------
 
 
-def _first_option(need: Need) -> tuple[str, ...]:
-    return need.one_of[:1]
-
-
 def example_request(method_id: str, *, readings: bool = False) -> dict[str, Any]:
     """A request the engine reduces, built from the entries' examples.
 
@@ -787,7 +759,7 @@ def example_request(method_id: str, *, readings: bool = False) -> dict[str, Any]
     if readings and m.readings:
         trial = {"readings": [{"time": t, "head": h} for t, h in EXAMPLE_READINGS]}
     else:
-        trial = {i: entry(Scope.TRIAL, i).example for need in m.needs for i in _first_option(need)}
+        trial = {i: entry(Scope.TRIAL, i).example for need in m.needs for i in need.one_of[:1]}
     if "temperature" in m.trial:
         trial["temperature"] = entry(Scope.TRIAL, "temperature").example
     request: dict[str, Any] = {"method": m.id, "specimen": specimen, "trials": [trial]}

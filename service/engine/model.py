@@ -71,7 +71,7 @@ class Reading:
 
 
 # The trial's numeric fields, named as the catalogue's trial entries name them.
-TRIAL_NUMBERS = catalogue.uniq(e.si_field for e in catalogue.TRIAL if e.si_field)
+TRIAL_NUMBERS = tuple(dict.fromkeys(e.si_field for e in catalogue.TRIAL if e.si_field))
 
 
 @dataclass(frozen=True, slots=True)

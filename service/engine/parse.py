@@ -68,6 +68,17 @@ ALL_QUANTITY_FIELDS = {
     **READING_FIELDS,
     **OPTION_QUANTITIES,
 }
+# Plausible ranges of specimen entries (SI): name, lowest, highest, accepted, reason. The
+# specific gravity must be above 1 (solids heavier than water); the others include their ends.
+SPECIMEN_RANGES = (
+    ("water_content", 0.0, 10.0, "a fraction such as 0.224 or a percentage such as '22.4 %'",
+     "is not from 0 to 1000 %: a percentage needs its '%' sign"),
+    ("specific_gravity", 1.0, 6.0, "a number above 1 and at most 6, such as 2.70",
+     "is not a plausible specific gravity of solids"),
+    ("retained_on_lower_sieve", 0.0, 1.0, "a percentage from 0 to 100 %, such as '40 %'",
+     "is not from 0 to 100 %"),
+)  # fmt: skip
+B_VALUE = "a B-value from 0 to 1.1, such as 0.96"
 CORRECTIONS = catalogue.entry(Scope.OPTION, "temperature_correction").choices
 DENSITY_CONVENTIONS = catalogue.entry(Scope.OPTION, "water_density").choices
 
@@ -320,33 +331,13 @@ def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str,
                 u.pop(field_name, None)
                 if got[1] is not None:
                     u[field_name] = got[1]
-    w = values.get("water_content")
-    if w is not None and w > 10.0:
-        reader.add(
-            (*loc, "water_content"),
-            data["water_content"],
-            "a fraction such as 0.224 or a percentage such as '22.4 %'",
-            "is above 1000 %: a percentage needs its '%' sign",
-            "out_of_range",
-        )
-    gs = values.get("specific_gravity")
-    if gs is not None and not 1.0 < gs <= 6.0:
-        reader.add(
-            (*loc, "specific_gravity"),
-            data["specific_gravity"],
-            "a number above 1 and at most 6, such as 2.70",
-            "is not a plausible specific gravity of solids",
-            "out_of_range",
-        )
-    r = values.get("retained_on_lower_sieve")
-    if r is not None and r > 1.0:
-        reader.add(
-            (*loc, "retained_on_lower_sieve"),
-            data["retained_on_lower_sieve"],
-            "a percentage from 0 to 100 %, such as '40 %'",
-            "is above 100 %",
-            "out_of_range",
-        )
+    for name, low, high, accepted, reason in SPECIMEN_RANGES:
+        value = values.get(SPECIMEN_FIELDS[name][1])
+        if value is None:
+            continue
+        inside = low < value <= high if name == "specific_gravity" else low <= value <= high
+        if not inside:
+            reader.add((*loc, name), data[name], accepted, reason, "out_of_range")
     stiff = data.get("stiff_material", False)
     if not isinstance(stiff, bool):
         reader.add((*loc, "stiff_material"), stiff, "true or false", "is not a boolean", "bad_type")
@@ -401,43 +392,20 @@ def _read_saturation(reader: _Reader, raw: Any) -> tuple[SaturationStep, ...]:
         )
         return ()
     steps = []
+    table = {e.id: (e.kind, e.si_field, e.positive) for e in catalogue.entries(Scope.SATURATION)}
     for j, item in enumerate(raw):
         loc: Loc = ("saturation", j)
-        data = reader.section(item, loc, ("back_pressure", "b_value"))
-        back = None
-        if "back_pressure" in data:
-            try:
-                back = units.parse_quantity(
-                    data["back_pressure"], units.PRESSURE, (*loc, "back_pressure"), positive=False
-                )[0]
-            except EngineInputError as exc:
-                reader.problems.extend(exc.problems)
+        data = reader.section(item, loc, tuple(table))
+        back = reader.quantity(data, "back_pressure", loc, table)
+        b = reader.quantity(data, "b_value", loc, table)
         if "b_value" not in data:
+            reader.add((*loc, "b_value"), None, B_VALUE, "is required", "missing")
+        elif b is not None and not 0.0 <= b[0] <= 1.1:
             reader.add(
-                (*loc, "b_value"),
-                None,
-                "a B-value from 0 to 1.1, such as 0.96",
-                "is required",
-                "missing",
+                (*loc, "b_value"), data["b_value"], B_VALUE, "is out of range", "out_of_range"
             )
-            continue
-        try:
-            b = units.parse_quantity(
-                data["b_value"], units.NUMBER, (*loc, "b_value"), positive=False
-            )[0]
-        except EngineInputError as exc:
-            reader.problems.extend(exc.problems)
-            continue
-        if not 0.0 <= b <= 1.1:
-            reader.add(
-                (*loc, "b_value"),
-                data["b_value"],
-                "a B-value from 0 to 1.1, such as 0.96",
-                "is out of range",
-                "out_of_range",
-            )
-            continue
-        steps.append(SaturationStep(b_value=b, back_pressure_pa=back))
+        elif b is not None:
+            steps.append(SaturationStep(b_value=b[0], back_pressure_pa=back[0] if back else None))
     return tuple(steps)
 
 

@@ -342,6 +342,27 @@ def _section(
     )
 
 
+@dataclass(frozen=True)
+class Outcome:
+    """How a section answers a save: its section and form prefix, and what it says."""
+
+    section: str
+    prefix: str
+    saved: str
+    stale: str = ""
+    fragment: str = ""
+
+
+def _answer(
+    request: Request, session: Session, user: User, test_id: int, tried: Attempt, forms: Forms,
+    outcome: Outcome,
+) -> Response:  # fmt: skip
+    """The section again after a save: saved, or refused with everything typed kept."""
+    forms = _settle(forms, tried, outcome.section, outcome.prefix, outcome.saved, outcome.stale)
+    fragment, status = outcome.fragment or outcome.section, tried.status
+    return _section(request, session, user, test_id, fragment, forms=forms, status_code=status)
+
+
 def _int_or_none(text: Any) -> int | None:
     try:
         return int(str(text))
@@ -470,9 +491,8 @@ async def save_apparatus(
         "The test changed since this page was loaded (someone else saved it). Your choice "
         "is still selected; check it and save again."
     )
-    forms = _settle(forms, tried, "apparatus", "app", "Apparatus saved.", stale)
-    status = tried.status
-    return _section(request, session, user, test_id, "apparatus", forms=forms, status_code=status)
+    outcome = Outcome("apparatus", "app", "Apparatus saved.", stale)
+    return _answer(request, session, user, test_id, tried, forms, outcome)
 
 
 # ---------- flexible-wall conditions and saturation ----------
@@ -493,9 +513,8 @@ async def save_conditions(
     with attempt(session) as tried:
         lab_tests.update_test(session, test_id, TestUpdate.model_validate(fields), actor=user)
     stale = "The test changed since this page was loaded. Your entries are kept; save again."
-    forms = _settle(forms, tried, "conditions", "cond", "Conditions saved.", stale)
-    status = tried.status
-    return _section(request, session, user, test_id, "conditions", forms=forms, status_code=status)
+    outcome = Outcome("conditions", "cond", "Conditions saved.", stale)
+    return _answer(request, session, user, test_id, tried, forms, outcome)
 
 
 @router.post("/{test_id}/saturation")
@@ -512,9 +531,8 @@ async def add_saturation(
     with attempt(session) as tried:
         data = SaturationStepCreate.model_validate(fields)
         lab_tests.add_saturation_step(session, test_id, data, actor=user)
-    forms = _settle(forms, tried, "saturation", "sat", "Saturation step added.")
-    status = tried.status
-    return _section(request, session, user, test_id, "conditions", forms=forms, status_code=status)
+    outcome = Outcome("saturation", "sat", "Saturation step added.", fragment="conditions")
+    return _answer(request, session, user, test_id, tried, forms, outcome)
 
 
 # ---------- trials ----------
@@ -610,9 +628,8 @@ async def _set_excluded(
         lab_tests.exclude_trial(session, test_id, trial_id, data, actor=user, excluded=excluded)
     word = "left out of the reduction" if excluded else "taken back into the reduction"
     stale = "That trial changed since this page was loaded; it is shown as saved now."
-    forms = _settle(forms, tried, "trials", prefix, f"Trial {word}.", stale)
-    status = tried.status
-    return _section(request, session, user, test_id, "trials", forms=forms, status_code=status)
+    outcome = Outcome("trials", prefix, f"Trial {word}.", stale)
+    return _answer(request, session, user, test_id, tried, forms, outcome)
 
 
 # ---------- submission ----------

@@ -236,6 +236,14 @@ def _certificates(session: Session, user: User, project_id: int) -> dict[str, An
     }
 
 
+def _filtered(rows: list[SampleRow], status: str, location: str) -> list[SampleRow]:
+    return [
+        row
+        for row in rows
+        if (not status or row.status.key == status) and (not location or row.location == location)
+    ]
+
+
 def _filter_problems(status: str, location: str, locations: list[str]) -> list[str]:
     """Why a filter of the sample table is refused, naming what is accepted."""
     problems = []
@@ -266,12 +274,7 @@ def project_page(
     rows = sample_rows(session, project)
     locations = sorted({row.location for row in rows})
     problems = _filter_problems(status, location, locations)
-    shown = [
-        row
-        for row in rows
-        if (not status or problems or row.status.key == status)
-        and (not location or problems or row.location == location)
-    ]
+    shown = rows if problems else _filtered(rows, status, location)
     context = layout_context(
         request,
         user,

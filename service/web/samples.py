@@ -29,7 +29,7 @@ from service.samples.service import get_sample
 from service.web.entries import METHOD_CHOICES, STANDARD_CHOICES
 from service.web.htmx import render
 from service.web.pages import layout_context
-from service.web.refusals import attempt, simple_name
+from service.web.refusals import Attempt, attempt, simple_name
 
 router = APIRouter(prefix="/samples", include_in_schema=False)
 
@@ -206,24 +206,32 @@ async def custody_submit(
     payload = {name: value.strip() for name, value in values.items()}
     with attempt(session, catch=(InvalidInput,)) as tried:
         add_custody_event(session, sample_id, CustodyEventIn.model_validate(payload), actor=user)
-    errors, general = tried.fields(simple_name(CUSTODY_FIELDS))
-    refused = tried.refused
-    context = sample_context(
-        request,
-        session,
-        user,
-        sample_id,
-        custody_form=values if refused else None,
-        custody_errors=errors,
-        custody_general=general,
-        saved="" if refused else "custody",
-    )
+    return _section(request, session, user, sample_id, "custody", tried, values, CUSTODY_FIELDS)
+
+
+def _section(
+    request: Request,
+    session: Session,
+    user: User,
+    sample_id: int,
+    name: str,
+    tried: Attempt,
+    values: Mapping[str, str],
+    fields: Iterable[str],
+) -> Response:
+    """A form's section after a save: what was saved, or the refusal beside its fields with
+    everything typed kept. `name` is the form ("custody" or "test")."""
+    errors, general = tried.fields(simple_name(fields))
+    shown: dict[str, Any] = {
+        f"{name}_form": values if tried.refused else None,
+        f"{name}_errors": errors,
+        f"{name}_general": general,
+    }
+    saved = "" if tried.refused else name
+    context = sample_context(request, session, user, sample_id, saved=saved, **shown)
+    fragment = "samples/_custody.html" if name == "custody" else "samples/_tests.html"
     return render(
-        request,
-        "samples/sample.html",
-        context,
-        fragment="samples/_custody.html",
-        status_code=tried.status,
+        request, "samples/sample.html", context, fragment=fragment, status_code=tried.status
     )
 
 
@@ -243,22 +251,4 @@ async def test_request_submit(
         payload["reference_temperature_c"] = values["reference_temperature_c"].strip()
     with attempt(session) as tried:
         lab_tests.request_test(session, sample_id, TestCreate.model_validate(payload), actor=user)
-    errors, general = tried.fields(simple_name(TEST_FIELDS))
-    refused = tried.refused
-    context = sample_context(
-        request,
-        session,
-        user,
-        sample_id,
-        test_form=values if refused else None,
-        test_errors=errors,
-        test_general=general,
-        saved="" if refused else "test",
-    )
-    return render(
-        request,
-        "samples/sample.html",
-        context,
-        fragment="samples/_tests.html",
-        status_code=tried.status,
-    )
+    return _section(request, session, user, sample_id, "test", tried, values, TEST_FIELDS)
