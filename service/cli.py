@@ -133,12 +133,22 @@ def _serve(args: argparse.Namespace) -> int:
     return 0
 
 
+def migration_report(before: str | None, after: str | None) -> str:
+    """What `migrate` did, in words."""
+    if before is None:
+        return f"created the schema at revision {after}"
+    if before == after:
+        return f"the schema was already at revision {after}: nothing to do"
+    return f"upgraded the schema from revision {before} to {after}"
+
+
 def _migrate(_args: argparse.Namespace) -> int:
     from service.certificates.service import sign_missing_states
-    from service.db import migrate, session_scope
+    from service.db import current_revision, get_engine, migrate, session_scope
 
+    before = current_revision(get_engine())
     migrate()
-    print("database schema is up to date")
+    print(migration_report(before, current_revision(get_engine())))
     with session_scope(write=True) as session:
         signed = sign_missing_states(session)
     if signed:
@@ -146,14 +156,26 @@ def _migrate(_args: argparse.Namespace) -> int:
     return 0
 
 
+def served_address(host: str, port: int) -> str:
+    """The address `seepline serve` answers on, as a browser on this machine reaches it."""
+    if host in ("0.0.0.0", "::", ""):
+        host = "127.0.0.1"
+    elif ":" in host:
+        host = f"[{host}]"
+    return f"http://{host}:{port}"
+
+
 def _load_demo(_args: argparse.Namespace) -> int:
+    from service.config import get_settings
     from service.db import session_scope
     from service.demo import DEMO_PASSWORDS, load_demo
 
     with session_scope(write=True) as session:
         created = load_demo(session)
+    settings = get_settings()
     print("demo data loaded" if created else "demo data already present: nothing changed")
-    print("sign in at http://127.0.0.1:8000 with any of these demo accounts:")
+    address = served_address(settings.host, settings.port)
+    print(f"sign in at {address} (after `seepline serve`) with any of these demo accounts:")
     for email, (role, password) in DEMO_PASSWORDS.items():
         print(f"  {role:<12} {email:<32} password: {password}")
     return 0

@@ -76,7 +76,6 @@ class Priority(StrEnum):
 
 
 class TestMethod(StrEnum):
-    __test__ = False  # not a pytest class
     CONSTANT_HEAD = "constant_head"
     FALLING_HEAD = "falling_head"
     FALLING_HEAD_RISING_TAIL = "falling_head_rising_tail"
@@ -84,7 +83,6 @@ class TestMethod(StrEnum):
 
 
 class TestState(StrEnum):
-    __test__ = False
     PLANNED = "planned"
     RUNNING = "running"
     SUBMITTED = "submitted"

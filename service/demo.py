@@ -32,7 +32,7 @@ from service.common import (
 )
 from service.custody.service import record_custody
 from service.db import utcnow
-from service.lab_tests import service as lifecycle
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import Specimen
 from service.lab_tests.schemas import (
     CorrectionRequest,
@@ -478,17 +478,19 @@ def _make_test(
     """Take one test as far as `state` through the same service functions the API uses."""
     assert sample.id is not None
     flexible = plan.method != TestMethod.CONSTANT_HEAD
-    test = lifecycle.request_test(
+    test = lab_tests.request_test(
         session,
         sample.id,
-        TestCreate(
-            method=plan.method,
-            standard=plan.standard,
-            technician_id=technician.id,
-            apparatus_ids=apparatus_ids,
-            cell_pressure="550 kPa" if flexible else None,
-            back_pressure="515 kPa" if flexible else None,
-            effective_confining="35 kPa" if flexible else None,
+        TestCreate.model_validate(
+            {
+                "method": plan.method,
+                "standard": plan.standard,
+                "technician_id": technician.id,
+                "apparatus_ids": apparatus_ids,
+                "cell_pressure": "550 kPa" if flexible else None,
+                "back_pressure": "515 kPa" if flexible else None,
+                "effective_confining": "35 kPa" if flexible else None,
+            }
         ),
         actor=manager,
     )
@@ -496,10 +498,10 @@ def _make_test(
     if state == TestState.PLANNED:
         return
     specimen_form = _specimen_write(rng, plan)
-    specimen = lifecycle.write_specimen(session, test.id, specimen_form, actor=technician)
+    specimen = lab_tests.write_specimen(session, test.id, specimen_form, actor=technician)
     if flexible:
         for back, b_value in ((345, 0.88), (445, 0.94), (515, 0.97)):
-            lifecycle.add_saturation_step(
+            lab_tests.add_saturation_step(
                 session,
                 test.id,
                 SaturationStepCreate(back_pressure=f"{back} kPa", b_value=b_value),
@@ -509,7 +511,7 @@ def _make_test(
     count = rng.randint(1, 3) if state == TestState.RUNNING else 4
     for seq in range(1, count + 1):
         entries = _trial_entries(rng, plan, k, specimen)
-        lifecycle.record_trial(
+        lab_tests.record_trial(
             session,
             test.id,
             TrialCreate(**entries),
@@ -519,11 +521,11 @@ def _make_test(
     if state == TestState.RUNNING:
         return
     password = DEMO_PASSWORDS[technician.email][1]
-    lifecycle.submit_test(session, test.id, SignOffRequest(password=password), actor=technician)
+    lab_tests.submit_test(session, test.id, SignOffRequest(password=password), actor=technician)
     if state == TestState.SUBMITTED:
         return
     reviewer_password = DEMO_PASSWORDS[reviewer.email][1]
-    lifecycle.approve_test(
+    lab_tests.approve_test(
         session, test.id, SignOffRequest(password=reviewer_password), actor=reviewer
     )
     if state == TestState.APPROVED:
@@ -533,7 +535,7 @@ def _make_test(
         return
     # Superseded: a transcription slip found after issue, corrected in revision 2, which is
     # approved and issued on a new certificate revision that supersedes the first.
-    correction = lifecycle.request_correction(
+    correction = lab_tests.request_correction(
         session,
         test.id,
         CorrectionRequest(
@@ -542,20 +544,20 @@ def _make_test(
         actor=manager,
     )
     assert correction.id is not None
-    corrected = lifecycle.specimen_of(session, correction.id)
+    corrected = lab_tests.specimen_of(session, correction.id)
     assert corrected is not None
     assert corrected.length_m is not None
     length_mm = corrected.length_m * 1000 - 0.9
-    lifecycle.write_specimen(
+    lab_tests.write_specimen(
         session,
         correction.id,
         SpecimenWrite(version=corrected.version, length=f"{length_mm:.2f} mm"),
         actor=technician,
     )
-    lifecycle.submit_test(
+    lab_tests.submit_test(
         session, correction.id, SignOffRequest(password=password), actor=technician
     )
-    lifecycle.approve_test(
+    lab_tests.approve_test(
         session, correction.id, SignOffRequest(password=reviewer_password), actor=reviewer
     )
     issue_sample_certificate(

@@ -9,7 +9,7 @@ from contextlib import asynccontextmanager
 from typing import Any
 
 import sqlalchemy as sa
-from fastapi import APIRouter, FastAPI, Request
+from fastapi import APIRouter, FastAPI
 from fastapi.responses import JSONResponse
 from fastapi.staticfiles import StaticFiles
 from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
@@ -17,9 +17,9 @@ from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
 import service.api
 import service.web
 from service import __version__
+from service.api.problems import install_problem_details
 from service.config import get_settings
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
-from service.errors import ServiceError
 from service.security import install_security
 from service.stored_text import install as check_stored_text
 from service.web.errors import install_web_error_handling
@@ -46,8 +46,8 @@ def create_app() -> FastAPI:
     check_stored_text()  # no control character reaches the database, whatever the route
     app.mount("/static", StaticFiles(directory=PROJECT_ROOT / "static"), name="static")
     _add_routes(app)
-    app.add_exception_handler(ServiceError, _service_error)
-    install_web_error_handling(app)  # pages get HTML errors; /api/ keeps the JSON above
+    install_problem_details(app)  # every refusal as RFC 9457 problem details ...
+    install_web_error_handling(app)  # ... except on pages, which get HTML errors
     install_security(app)  # after: its validation handler wraps the one installed before
     proxies = get_settings().trusted_proxies
     if proxies:  # outermost: every part of the app sees the client's own address
@@ -88,13 +88,3 @@ def _add_routes(app: FastAPI) -> None:
             },
             status_code=200 if ok else 503,
         )
-
-
-async def _service_error(_request: Request, exc: Exception) -> JSONResponse:
-    assert isinstance(exc, ServiceError)
-    if isinstance(exc.detail, list) and exc.status_code == 422:
-        return JSONResponse({"detail": exc.detail}, status_code=422)
-    body: dict[str, Any] = {"error": exc.code, "detail": exc.message}
-    if exc.detail is not None:
-        body["context"] = exc.detail
-    return JSONResponse(body, status_code=exc.status_code)

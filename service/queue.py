@@ -1,4 +1,4 @@
-"""The lab's work queue for managers, and the paging every list endpoint shares.
+"""The lab's work queue for managers.
 
 One query per figure (counts by state, technician load, the page of tests and its total),
 whatever the number of samples: no per-row look-ups."""
@@ -7,50 +7,22 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
 from datetime import date
-from typing import Any, Generic, TypeVar
+from typing import Any
 
 import sqlalchemy as sa
 from pydantic import BaseModel, Field
 from sqlmodel import Session, col, func, select
-from sqlmodel.sql.expression import SelectOfScalar
 
 from service.accounts.models import Organisation, User
 from service.common import Priority, TestState
 from service.db import utcnow
 from service.lab_tests.models import PermeabilityTest
+from service.paging import Page, count_of
 from service.projects.models import Project
 from service.samples.models import Sample
 
-ItemT = TypeVar("ItemT")
-
-DEFAULT_LIMIT = 50
-MAX_LIMIT = 500
 # Tests still owed to a client: these count towards load and can be overdue.
 OPEN_STATES = (TestState.PLANNED, TestState.RUNNING, TestState.SUBMITTED, TestState.APPROVED)
-
-
-class Page(BaseModel, Generic[ItemT]):
-    """One page of a list: the items, how many match in all, and where the page starts."""
-
-    items: list[ItemT]
-    total: int
-    limit: int
-    offset: int
-
-
-def count_of(session: Session, query: SelectOfScalar[Any]) -> int:
-    """How many rows `query` matches (ordering dropped)."""
-    counted = select(func.count()).select_from(query.order_by(None).subquery())
-    return int(session.exec(counted).one())
-
-
-def paginate(
-    session: Session, query: SelectOfScalar[Any], *, limit: int, offset: int
-) -> tuple[list[Any], int]:
-    """The rows of one page of `query` and the total it matches."""
-    total = count_of(session, query)
-    rows = list(session.exec(query.limit(limit).offset(offset)).all())
-    return rows, total
 
 
 # --- the queue -----------------------------------------------------------------------------
@@ -206,21 +178,40 @@ def technician_load(session: Session, filters: QueueFilters) -> list[TechnicianL
     )
 
 
+SORTS = ("due", "priority", "state")
+
+
+def _order(sort: str) -> list[Any]:
+    """The ORDER BY of a sort: earliest due first (urgent first on the same day); or urgent
+    first, then by due date; or by state (lifecycle order), then by due date."""
+    urgent_first = sa.case((col(Sample.priority) == Priority.URGENT.value, 0), else_=1)
+    by_due = [_due_date().is_(None), _due_date()]
+    if sort == "priority":
+        return [urgent_first, *by_due, col(PermeabilityTest.id)]
+    if sort == "state":
+        ranks = {state.value: rank for rank, state in enumerate(TestState)}
+        by_state = sa.case(ranks, value=col(PermeabilityTest.state), else_=len(ranks))
+        return [by_state, *by_due, col(PermeabilityTest.id)]
+    return [*by_due, urgent_first, col(PermeabilityTest.id)]
+
+
 def queue_tests(
-    session: Session, filters: QueueFilters, *, limit: int, offset: int
+    session: Session, filters: QueueFilters, *, limit: int, offset: int, sort: str = "due"
 ) -> Page[QueueTest]:
-    """The tests matching `filters`, earliest due first (urgent first on the same day).
+    """The tests matching `filters` in the order of `sort` (one of SORTS: "due", the default,
+    earliest due first with urgent first on the same day; "priority"; "state").
 
     Without a state filter the queue shows open tests only (planned to approved). The page
     is chosen on the test and sample tables alone; names are fetched for its rows only."""
+    if sort not in SORTS:
+        raise ValueError(f"sort must be one of {', '.join(SORTS)}")
     if not filters.states:
         filters = replace(filters, states=OPEN_STATES)
     total = count_of(session, _filtered(select(PermeabilityTest.id), filters))
-    urgent_first = sa.case((col(Sample.priority) == Priority.URGENT.value, 0), else_=1)
     page_ids: list[int] = list(
         session.exec(
             _filtered(select(PermeabilityTest.id), filters, join_sample=True)
-            .order_by(_due_date().is_(None), _due_date(), urgent_first, col(PermeabilityTest.id))
+            .order_by(*_order(sort))
             .limit(limit)
             .offset(offset)
         ).all()
@@ -281,7 +272,9 @@ def queue_tests(
     return Page[QueueTest](items=items, total=total, limit=limit, offset=offset)
 
 
-def queue_view(session: Session, filters: QueueFilters, *, limit: int, offset: int) -> QueueView:
+def queue_view(
+    session: Session, filters: QueueFilters, *, limit: int, offset: int, sort: str = "due"
+) -> QueueView:
     """Everything the manager's queue shows, in six small queries whatever the data size."""
     load = technician_load(session, filters)
     return QueueView(
@@ -289,5 +282,5 @@ def queue_view(session: Session, filters: QueueFilters, *, limit: int, offset: i
         counts=queue_counts(session, filters),
         overdue=sum(row.overdue for row in load),
         load=load,
-        tests=queue_tests(session, filters, limit=limit, offset=offset),
+        tests=queue_tests(session, filters, limit=limit, offset=offset, sort=sort),
     )

@@ -43,7 +43,7 @@ from urllib.parse import urlsplit
 import sqlalchemy as sa
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse, Response
+from fastapi.responses import Response
 from starlette.datastructures import Headers, MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.requests import cookie_parser
@@ -52,7 +52,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.accounts.signin import DEVICE_COOKIE, read_device_cookie
 from service.config import get_settings
 from service.deps import SESSION_COOKIE, OptionalUser
-from service.errors import PermissionDenied, ServiceError, TooManyAttempts, Unavailable
+from service.errors import PermissionDenied, ServiceError, TooLarge, TooManyAttempts, Unavailable
 
 LOG = logging.getLogger("seepline")
 Handler = Callable[[Request, Any], Response | Awaitable[Response]]
@@ -461,20 +461,14 @@ def install_security(app: FastAPI) -> None:
     async def too_large(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, RequestBodyTooLarge)
         if _is_api(request):
-            return JSONResponse(
-                {
-                    "error": "too_large",
-                    "detail": exc.detail,
-                    "context": {"limit_bytes": exc.limit},
-                },
-                status_code=413,
-            )
+            refusal = TooLarge(str(exc.detail), detail={"limit_bytes": exc.limit})
+            return await _call(_lookup(app, ServiceError), request, refusal)
         return await _call(_lookup(app, StarletteHTTPException), request, exc)
 
     async def with_retry_after(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, TooManyAttempts | Unavailable)
         response = await _call(_lookup(app, ServiceError, skip=with_retry_after), request, exc)
-        wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
+        wait = exc.detail.get("retry_after_seconds")
         if isinstance(wait, int | float) and math.isfinite(wait) and wait > 0:
             response.headers["Retry-After"] = str(math.ceil(wait))
         return response

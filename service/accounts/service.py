@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import re
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from datetime import datetime
 from typing import Any
 
@@ -18,17 +18,15 @@ from service.accounts.tokens import revoke
 from service.audit.service import apply_changes, record_change, record_created
 from service.common import DisplayUnits, OrganisationKind, Role
 from service.db import utcnow
-from service.errors import Conflict, InvalidInput, NotFound, StaleVersion
+from service.errors import Conflict, InvalidInput, NotFound, invalid, require_version
 
 # Deliberately loose: one @, no spaces, a dot in the domain. Mail delivery is the real test.
 _EMAIL = re.compile(r"^[^@\s]+@[^@\s]+\.[^@\s]+$")
 
 
 def field_error(field: str, msg: str) -> InvalidInput:
-    """An InvalidInput shaped like FastAPI's 422, naming the body field."""
-    return InvalidInput(
-        f"{field}: {msg}", detail=[{"loc": ["body", field], "msg": msg, "type": "value_error"}]
-    )
+    """A 422 naming the field."""
+    return invalid((field,), msg)
 
 
 def normalise_email(email: str) -> str:
@@ -75,12 +73,14 @@ def create_user(
     email = normalise_email(email)
     check_password_strength(password, email=email, full_name=full_name)
     if (role == Role.CLIENT) != (organisation.kind == OrganisationKind.CLIENT):
-        raise InvalidInput(
-            f"role: {role.value} does not fit a {organisation.kind} organisation; "
-            "client users belong to client organisations, lab staff to the lab"
+        raise invalid(
+            ("role",),
+            f"{role.value} does not fit a {organisation.kind} organisation",
+            value=role.value,
+            accepted="client users belong to client organisations, lab staff to the lab",
         )
     if session.exec(select(User).where(User.email == email)).first() is not None:
-        raise Conflict(f"email: a user with {email} already exists")
+        raise Conflict(f"a user with {email} already exists", detail={"field": "email"})
     assert organisation.id is not None
     user = User(
         organisation_id=organisation.id,
@@ -213,17 +213,7 @@ def update_user(
 
     `version` is the one the admin read; a different current version raises StaleVersion
     with both. Deactivating a user revokes their sessions and tokens."""
-    if version != user.version:
-        raise StaleVersion(
-            f"user {user.id} changed since you read it (you sent version {version}, "
-            f"it is now at version {user.version}): reload and apply your change again",
-            detail={
-                "sent_version": version,
-                "current_version": user.version,
-                "sent": changes,
-                "current": user_snapshot(user),
-            },
-        )
+    require_version(user, version, f"user {user.id}", yours=changes, current=user_snapshot(user))
     if "role" in changes:
         _check_role_fits(get_organisation(session, user.organisation_id), Role(changes["role"]))
     stays_admin = changes.get("role", user.role) == Role.ADMIN and changes.get(
@@ -284,7 +274,9 @@ def create_organisation(
         select(Organisation).where(func.lower(Organisation.name) == name.lower())
     ).first()
     if clash is not None:
-        raise Conflict(f"name: organisation {clash.id} is already called {clash.name!r}")
+        raise Conflict(
+            f"organisation {clash.id} is already called {clash.name!r}", detail={"field": "name"}
+        )
     if contact_email:
         contact_email = check_email(contact_email, field="contact_email")
     organisation = Organisation(
@@ -357,3 +349,12 @@ def revoke_all_tokens(
         revoke_token(session, token, actor=actor)
         count += 1
     return count
+
+
+def names_of(session: Session, user_ids: Iterable[int | None]) -> dict[int, str]:
+    """Full names of users by id (ids of nobody left out)."""
+    wanted = {i for i in user_ids if i}
+    if not wanted:
+        return {}
+    rows = session.exec(select(User.id, User.full_name).where(col(User.id).in_(wanted))).all()
+    return {user_id: name for user_id, name in rows if user_id is not None}

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Response
 
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.apparatus.service import (
     ApparatusCreate,
     ApparatusRead,
@@ -18,7 +18,7 @@ from service.apparatus.service import (
 )
 from service.common import ApparatusKind
 from service.deps import LabStaff, Manager, SessionDep
-from service.queue import DEFAULT_LIMIT, Page
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1/apparatus", tags=["apparatus"])
 
@@ -34,18 +34,16 @@ def create(data: ApparatusCreate, session: SessionDep, user: Manager) -> Apparat
 def list_all(
     session: SessionDep,
     _user: LabStaff,
+    paging: Paging,
     kind: ApparatusKind | None = None,
     overdue: bool | None = None,
     active: bool | None = None,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
 ) -> Page[ApparatusRead]:
     """The register by identifier; `overdue` marks items past their calibration due date."""
     rows, total = list_apparatus(
-        session, kind=kind, overdue=overdue, active=active, limit=limit, offset=offset
+        session, kind=kind, overdue=overdue, active=active, **paging.window
     )
-    items = [apparatus_read(row) for row in rows]
-    return Page[ApparatusRead](items=items, total=total, limit=limit, offset=offset)
+    return paging.of(rows, total, apparatus_read)
 
 
 @router.get("/{apparatus_id}", response_model=ApparatusRead)

@@ -9,12 +9,12 @@ from sqlmodel import SQLModel
 
 from service.access import is_client
 from service.accounts.models import User
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.audit.service import FieldChange, history
 from service.custody.service import ChainReportRead, verify_chain
 from service.deps import CurrentUser, LabStaff, SessionDep
 from service.errors import InvalidInput, NotFound
-from service.queue import DEFAULT_LIMIT, Page
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1/audit", tags=["audit"])
 
@@ -53,8 +53,7 @@ def record_history(
     entity_id: int,
     session: SessionDep,
     _user: AuditReader,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
 ) -> Page[FieldChange]:
     """Every change to one record (entity is the table name: project, sample, apparatus,
     permeability_test ...), oldest first, field by field: old and new value, who, when."""
@@ -65,5 +64,4 @@ def record_history(
             message, detail=[{"loc": ["path", "entity"], "msg": message, "type": "enum"}]
         )
     events = history(session, entity, entity_id)
-    items = events[offset : offset + limit]
-    return Page[FieldChange](items=items, total=len(events), limit=limit, offset=offset)
+    return paging.cut(events, lambda change: change)

@@ -4,13 +4,14 @@ public verification twins of the /verify page."""
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Annotated
+from typing import Annotated, Any
 
-from fastapi import APIRouter, File, Query, UploadFile, status
+from fastapi import APIRouter, File, Query, UploadFile
 from fastapi.responses import Response
 from pydantic import BaseModel, Field
 from sqlmodel import Session
 
+from service.api.paging import Paging
 from service.certificates.models import Certificate
 from service.certificates.service import (
     CertificateStatus,
@@ -27,6 +28,7 @@ from service.certificates.service import (
 from service.config import get_settings
 from service.deps import CurrentUser, Reviewer, SessionDep
 from service.exchange.files import read_limited
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1/certificates", tags=["certificates"])
 
@@ -156,46 +158,45 @@ async def verify_upload(
     )
 
 
-@router.post(
-    "/samples/{sample_id}",
-    response_model=CertificateRead,
-    status_code=status.HTTP_201_CREATED,
-)
+ISSUED: dict[str, Any] = {"response_model": CertificateRead, "status_code": 201}
+
+
+@router.post("/samples/{sample_id}", **ISSUED)
 def issue_for_sample(
     sample_id: int, session: SessionDep, user: Reviewer, body: IssueRequest | None = None
 ) -> CertificateRead:
     """Issue the sample's certificate (or its next revision) from its approved tests."""
-    certificate = issue_sample_certificate(
-        session, sample_id, actor=user, reason=body.reason if body else ""
+    reason = body.reason if body else ""
+    return certificate_read(
+        session, issue_sample_certificate(session, sample_id, actor=user, reason=reason)
     )
-    return certificate_read(session, certificate)
 
 
-@router.post(
-    "/projects/{project_id}",
-    response_model=CertificateRead,
-    status_code=status.HTTP_201_CREATED,
-)
+@router.post("/projects/{project_id}", **ISSUED)
 def issue_for_project(
     project_id: int, session: SessionDep, user: Reviewer, body: IssueRequest | None = None
 ) -> CertificateRead:
     """Issue a project summary of every currently issued test (or its next revision)."""
-    certificate = issue_project_certificate(
-        session, project_id, actor=user, reason=body.reason if body else ""
+    reason = body.reason if body else ""
+    return certificate_read(
+        session, issue_project_certificate(session, project_id, actor=user, reason=reason)
     )
-    return certificate_read(session, certificate)
 
 
-@router.get("", response_model=list[CertificateRead])
+@router.get("", response_model=Page[CertificateRead])
 def list_visible(
     session: SessionDep,
     user: CurrentUser,
+    paging: Paging,
     project_id: Annotated[int | None, Query()] = None,
     sample_id: Annotated[int | None, Query()] = None,
-) -> list[CertificateRead]:
-    """Certificates you may see, for a project or a sample; clients see their own only."""
-    certificates = list_certificates(session, user=user, project_id=project_id, sample_id=sample_id)
-    return [certificate_read(session, c) for c in certificates]
+) -> Page[CertificateRead]:
+    """Certificates you may see, for a project or a sample; clients see their own only
+    (another organisation's project or sample answers 404)."""
+    rows, total = list_certificates(
+        session, user=user, project_id=project_id, sample_id=sample_id, **paging.window
+    )
+    return paging.of(rows, total, lambda c: certificate_read(session, c))
 
 
 @router.get("/{certificate_id}", response_model=CertificateRead)

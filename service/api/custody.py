@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.custody.service import (
     ChainReportRead,
     CustodyEventIn,
@@ -14,7 +14,7 @@ from service.custody.service import (
     verify_chain,
 )
 from service.deps import CurrentUser, LabStaff, SessionDep
-from service.queue import DEFAULT_LIMIT, Page
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1", tags=["custody"])
 
@@ -38,13 +38,11 @@ def timeline(
     sample_id: int,
     session: SessionDep,
     user: CurrentUser,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
 ) -> Page[CustodyEventRead]:
     """The sample's custody events in the order they were recorded."""
     events = sample_timeline(session, sample_id, user=user)
-    items = [CustodyEventRead.model_validate(event) for event in events[offset : offset + limit]]
-    return Page[CustodyEventRead](items=items, total=len(events), limit=limit, offset=offset)
+    return paging.cut(events, CustodyEventRead.model_validate)
 
 
 @router.get("/custody/verify", response_model=ChainReportRead)

@@ -6,19 +6,21 @@ from datetime import datetime
 from typing import Annotated, Any
 
 from fastapi import APIRouter, File, Form, Header, UploadFile, status
-from fastapi.responses import JSONResponse
 from pydantic import BaseModel
 
+from service.api.problems import field_item
 from service.config import get_settings
 from service.deps import LabStaff, Reception, SessionDep
 from service.exchange.files import Table, read_upload
 from service.exchange.imports import (
+    ReadingsImport,
     check_schedule,
     parse_readings,
     preview_readings,
     save_readings,
     save_schedule,
 )
+from service.lab_tests.schemas import TrialWritten
 from service.samples.service import ReceivedBatch, SampleRead
 
 router = APIRouter(prefix="/api/v1/imports", tags=["imports"])
@@ -43,6 +45,19 @@ async def _table(file: UploadFile) -> Table:
     )
 
 
+async def _readings(
+    file: UploadFile, time_column: str, head_column: str, time_unit: str, head_unit: str
+) -> ReadingsImport:
+    table = await _table(file)
+    return parse_readings(
+        table,
+        time_column=time_column,
+        head_column=head_column,
+        time_unit=time_unit,
+        head_unit=head_unit,
+    )
+
+
 @router.post("/readings/preview", response_model=ReadingsPreview)
 async def preview_readings_file(
     file: Annotated[UploadFile, File(description="CSV with a header row")],
@@ -59,18 +74,12 @@ async def preview_readings_file(
 
     Stores nothing: `trial` is the run in the contract's shape, ready to be recorded with the
     test's trials endpoint. Refusals name the file's row and column."""
-    table = await _table(file)
-    imported = parse_readings(
-        table,
-        time_column=time_column,
-        head_column=head_column,
-        time_unit=time_unit,
-        head_unit=head_unit,
-    )
+    columns = (time_column, head_column, time_unit, head_unit)
+    imported = await _readings(file, *columns)
     return preview_readings(session, test_id, imported, temperature=temperature, user=user)
 
 
-@router.post("/readings", status_code=status.HTTP_201_CREATED)
+@router.post("/readings", status_code=status.HTTP_201_CREATED, response_model=TrialWritten)
 async def record_readings_file(
     file: Annotated[UploadFile, File(description="CSV with a header row")],
     test_id: Annotated[int, Form()],
@@ -82,18 +91,11 @@ async def record_readings_file(
     user: LabStaff,
     idempotency_key: Annotated[str | None, Header(alias="Idempotency-Key")] = None,
     temperature: Annotated[str | None, Form(max_length=40)] = None,
-) -> JSONResponse:
+) -> TrialWritten:
     """Record the imported run as a new trial of the test (as the trials endpoint does:
     `Idempotency-Key` required, a retry answers the first response and stores nothing)."""
-    table = await _table(file)
-    imported = parse_readings(
-        table,
-        time_column=time_column,
-        head_column=head_column,
-        time_unit=time_unit,
-        head_unit=head_unit,
-    )
-    code, body = save_readings(
+    imported = await _readings(file, time_column, head_column, time_unit, head_unit)
+    return save_readings(
         session,
         test_id,
         imported,
@@ -101,7 +103,6 @@ async def record_readings_file(
         idempotency_key=idempotency_key,
         user=user,
     )
-    return JSONResponse(body, status_code=code)
 
 
 @router.post("/schedules/preview", response_model=SchedulePreviewRead)
@@ -118,7 +119,8 @@ async def preview_schedule(
     preview = check_schedule(
         session, project_id, table, actor=user, received_at=received_at, delivered_by=delivered_by
     )
-    return {"ok": preview.ok, "rows": preview.rows, "errors": preview.errors}
+    errors = [field_item(problem) for problem in preview.errors]
+    return {"ok": preview.ok, "rows": preview.rows, "errors": errors}
 
 
 @router.post("/schedules", response_model=ReceivedBatch, status_code=status.HTTP_201_CREATED)

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.deps import CurrentUser, Manager, Reception, SessionDep
+from service.paging import Page
 from service.projects.service import (
     LocationCreate,
     LocationRead,
@@ -19,7 +20,6 @@ from service.projects.service import (
     list_projects,
     update_project,
 )
-from service.queue import DEFAULT_LIMIT, Page
 
 router = APIRouter(prefix="/api/v1/projects", tags=["projects"])
 
@@ -35,17 +35,15 @@ def create(data: ProjectCreate, session: SessionDep, user: Manager) -> ProjectRe
 def list_all(
     session: SessionDep,
     user: CurrentUser,
+    paging: Paging,
     client_id: int | None = None,
     search: str | None = None,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
 ) -> Page[ProjectRead]:
     """Projects you may see (a client sees its own), newest first."""
     rows, total = list_projects(
-        session, user=user, client_id=client_id, search=search, limit=limit, offset=offset
+        session, user=user, client_id=client_id, search=search, **paging.window
     )
-    items = [ProjectRead.model_validate(row) for row in rows]
-    return Page[ProjectRead](items=items, total=total, limit=limit, offset=offset)
+    return paging.of(rows, total, ProjectRead.model_validate)
 
 
 @router.get("/{project_id}", response_model=ProjectRead)
@@ -72,10 +70,8 @@ def list_project_locations(
     project_id: int,
     session: SessionDep,
     user: CurrentUser,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
 ) -> Page[LocationRead]:
     """A project's locations by name."""
-    rows, total = list_locations(session, project_id, user=user, limit=limit, offset=offset)
-    items = [LocationRead.model_validate(row) for row in rows]
-    return Page[LocationRead](items=items, total=total, limit=limit, offset=offset)
+    rows, total = list_locations(session, project_id, user=user, **paging.window)
+    return paging.of(rows, total, LocationRead.model_validate)

@@ -1,4 +1,4 @@
-"""GET /api/v1/queue: the manager's view of the lab's work, and the paging all lists share."""
+"""GET /api/v1/queue: the manager's view of the lab's work."""
 
 from __future__ import annotations
 
@@ -7,14 +7,13 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query
 
+from service.api.paging import Limit, Offset
 from service.common import TestState
 from service.deps import LabStaff, SessionDep
-from service.queue import DEFAULT_LIMIT, MAX_LIMIT, QueueFilters, QueueView, queue_view
+from service.paging import DEFAULT_LIMIT
+from service.queue import QueueFilters, QueueView, queue_view
 
 router = APIRouter(prefix="/api/v1/queue", tags=["queue"])
-
-Limit = Annotated[int, Query(ge=1, le=MAX_LIMIT, description="page size")]
-Offset = Annotated[int, Query(ge=0, description="rows to skip")]
 
 
 @router.get("", response_model=QueueView)

@@ -2,17 +2,15 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from datetime import datetime
 from typing import Annotated
 
 from fastapi import APIRouter, Header, Query
 from fastapi.responses import JSONResponse
 
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.deps import CurrentUser, Reception, SessionDep
-from service.queue import DEFAULT_LIMIT, Page
-from service.samples.models import Sample
+from service.paging import Page
 from service.samples.service import (
     DisposalCandidate,
     ReceivedBatch,
@@ -62,22 +60,16 @@ def receive_batch(
     return JSONResponse(answer, status_code=status, headers=headers)
 
 
-def _page(rows: Sequence[Sample], total: int, limit: int, offset: int) -> Page[SampleRead]:
-    items = [SampleRead.model_validate(row) for row in rows]
-    return Page[SampleRead](items=items, total=total, limit=limit, offset=offset)
-
-
 @router.get("/samples", response_model=Page[SampleRead])
 def list_all(
     session: SessionDep,
     user: CurrentUser,
+    paging: Paging,
     project_id: int | None = None,
     client_id: int | None = None,
     location_id: int | None = None,
     disposed: bool | None = None,
     received_after: datetime | None = None,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
 ) -> Page[SampleRead]:
     """Samples you may see, most recently received first."""
     rows, total = list_samples(
@@ -88,36 +80,33 @@ def list_all(
         location_id=location_id,
         disposed=disposed,
         received_after=received_after,
-        limit=limit,
-        offset=offset,
+        **paging.window,
     )
-    return _page(rows, total, limit, offset)
+    return paging.of(rows, total, SampleRead.model_validate)
 
 
 @router.get("/samples/lookup", response_model=Page[SampleRead])
 def lookup(
     session: SessionDep,
     user: CurrentUser,
+    paging: Paging,
     code: Annotated[str, Query(max_length=80, description="lab ID or client sample ID")],
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
 ) -> Page[SampleRead]:
     """Find samples by what a barcode scanner types: a lab ID or a client sample ID
     (surrounding spaces and letter case ignored)."""
-    rows, total = lookup_samples(session, code, user=user, limit=limit, offset=offset)
-    return _page(rows, total, limit, offset)
+    rows, total = lookup_samples(session, code, user=user, **paging.window)
+    return paging.of(rows, total, SampleRead.model_validate)
 
 
 @router.get("/samples/due-for-disposal", response_model=Page[DisposalCandidate])
 def disposal_list(
     session: SessionDep,
     user: CurrentUser,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
 ) -> Page[DisposalCandidate]:
     """Samples whose project's retention period after their latest certificate has passed,
     not yet disposed and with no test still open. Disposal is a custody event."""
-    return due_for_disposal(session, user=user, limit=limit, offset=offset)
+    return due_for_disposal(session, user=user, **paging.window)
 
 
 @router.get("/samples/{sample_id}", response_model=SampleRead)

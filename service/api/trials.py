@@ -1,15 +1,14 @@
 """Trials of a test under /api/v1/tests/{test_id}/trials: idempotent writes, versioned edits,
-exclusion with a reason (rules in service/lab_tests/service.py)."""
+exclusion with a reason (rules in service/lab_tests/recording.py)."""
 
 from __future__ import annotations
 
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Header
-from fastapi.responses import JSONResponse
 
 from service.deps import LabStaff, SessionDep
-from service.lab_tests import service
+from service.lab_tests import service as lab_tests
 from service.lab_tests.schemas import TrialCreate, TrialExclusion, TrialUpdate, TrialWritten
 
 router = APIRouter(prefix="/api/v1/tests/{test_id}/trials", tags=["trials"])
@@ -22,8 +21,9 @@ _ERRORS: dict[int | str, dict[str, Any]] = {
         "or an Idempotency-Key reused with a different body"
     },
     422: {
-        "description": "A field refused by the engine, named under body (e.g. "
-        '["body", "head_final"]), with the value and what is accepted; nothing is stored'
+        "description": "Problem details: a field refused by the engine, at the trial's own "
+        'field (loc ["body", "head_final"], label "Trial 4 · Head at end"), with the value and '
+        "what is accepted; nothing is stored"
     },
 }
 
@@ -41,14 +41,13 @@ def record_trial(
             description="client-generated, one per new trial (a UUID); a retry sends the same",
         ),
     ] = None,
-) -> JSONResponse:
+) -> TrialWritten:
     """Record one trial in the reduction contract's shape, stored exactly as typed. Answers
     the trial and the test's live reduction (per-trial k, k_ref, gradient and the checks).
     A retry with the same key and body gets the same answer and stores nothing."""
-    status, body = service.record_trial(
+    return lab_tests.record_trial(
         session, test_id, data, idempotency_key=idempotency_key, actor=user
     )
-    return JSONResponse(body, status_code=status)
 
 
 @router.patch("/{trial_id}", response_model=TrialWritten, responses=_ERRORS)
@@ -56,7 +55,7 @@ def update_trial(
     test_id: int, trial_id: int, data: TrialUpdate, session: SessionDep, user: LabStaff
 ) -> TrialWritten:
     """Change a trial's entries against the `version` you read (null removes a field)."""
-    return service.update_trial(session, test_id, trial_id, data, actor=user)
+    return lab_tests.update_trial(session, test_id, trial_id, data, actor=user)
 
 
 @router.post("/{trial_id}/exclude", response_model=TrialWritten, responses=_ERRORS)
@@ -64,7 +63,7 @@ def exclude_trial(
     test_id: int, trial_id: int, data: TrialExclusion, session: SessionDep, user: LabStaff
 ) -> TrialWritten:
     """Leave a trial out of the reduction, with the reason (required)."""
-    return service.exclude_trial(session, test_id, trial_id, data, actor=user)
+    return lab_tests.exclude_trial(session, test_id, trial_id, data, actor=user)
 
 
 @router.post("/{trial_id}/include", response_model=TrialWritten, responses=_ERRORS)
@@ -72,4 +71,4 @@ def include_trial(
     test_id: int, trial_id: int, data: TrialExclusion, session: SessionDep, user: LabStaff
 ) -> TrialWritten:
     """Take an excluded trial back into the reduction."""
-    return service.exclude_trial(session, test_id, trial_id, data, actor=user, excluded=False)
+    return lab_tests.exclude_trial(session, test_id, trial_id, data, actor=user, excluded=False)

@@ -5,17 +5,16 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Query, status
+from fastapi import APIRouter, status
 from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_validator
 
 from service.accounts import service as accounts
+from service.api.paging import Paging
 from service.common import DisplayUnits, OrganisationKind, Role
 from service.deps import Admin, LabStaff, SessionDep
-from service.queue import DEFAULT_LIMIT, MAX_LIMIT, Page
+from service.paging import Page
 
 Name = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=200)]
-Limit = Annotated[int, Query(ge=1, le=MAX_LIMIT, description=f"page size (1 to {MAX_LIMIT})")]
-Offset = Annotated[int, Query(ge=0, description="rows to skip")]
 
 
 class _Strict(BaseModel):
@@ -93,17 +92,14 @@ organisations_router = APIRouter(prefix="/api/v1/organisations", tags=["organisa
 def list_users(
     session: SessionDep,
     _admin: Admin,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
     organisation_id: int | None = None,
     role: Role | None = None,
 ) -> Page[UserRead]:
     rows, total = accounts.list_users(
-        session, limit=limit, offset=offset, organisation_id=organisation_id, role=role
+        session, **paging.window, organisation_id=organisation_id, role=role
     )
-    return Page[UserRead](
-        items=[UserRead.model_validate(u) for u in rows], total=total, limit=limit, offset=offset
-    )
+    return paging.of(rows, total, UserRead.model_validate)
 
 
 @users_router.post("", status_code=status.HTTP_201_CREATED, summary="Create a user (admin)")
@@ -141,17 +137,11 @@ def unlock_user(user_id: int, session: SessionDep, admin: Admin) -> UserRead:
 def list_organisations(
     session: SessionDep,
     _staff: LabStaff,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
     kind: OrganisationKind | None = None,
 ) -> Page[OrganisationRead]:
-    rows, total = accounts.list_organisations(session, limit=limit, offset=offset, kind=kind)
-    return Page[OrganisationRead](
-        items=[OrganisationRead.model_validate(o) for o in rows],
-        total=total,
-        limit=limit,
-        offset=offset,
-    )
+    rows, total = accounts.list_organisations(session, **paging.window, kind=kind)
+    return paging.of(rows, total, OrganisationRead.model_validate)
 
 
 @organisations_router.post(

@@ -9,16 +9,18 @@ from datetime import date, datetime
 from typing import Any
 
 import sqlalchemy as sa
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator
 from sqlmodel import Session, col, func, select
 
 from service.accounts.models import User
 from service.apparatus.models import Apparatus
 from service.audit.service import apply_changes, record_change, record_created
-from service.common import ApparatusKind
+from service.common import ApparatusKind, Role
 from service.db import utcnow
-from service.engine.errors import EngineInputError
-from service.engine.units import (
+from service.errors import Conflict, NotFound, invalid, require_version
+from service.lab_tests.models import TestApparatus
+from service.paging import paginate
+from service.quantities import (
     AREA,
     DURATION,
     LENGTH,
@@ -27,12 +29,9 @@ from service.engine.units import (
     TEMPERATURE,
     VOLUME,
     Kind,
-    parse_uncertainty,
+    typed,
+    typed_step,
 )
-from service.errors import Conflict, InvalidInput, NotFound
-from service.lab_tests.models import TestApparatus
-from service.projects.service import invalid, problems_from, require_version, typed_quantity
-from service.queue import paginate
 from service.text import Identifier, identifier_key
 
 # The quantity a reading resolution is stated in, per kind of item. A permeameter's is the
@@ -96,10 +95,11 @@ class ApparatusCreate(_Strict):
     calibration_due: date | None = None
     is_active: bool = True
 
-    @model_validator(mode="after")
-    def _due_after_calibration(self) -> ApparatusCreate:
-        _check_dates(self.calibrated_on, self.calibration_due)
-        return self
+    @field_validator("calibration_due")
+    @classmethod
+    def _due_after_calibration(cls, value: date | None, info: ValidationInfo) -> date | None:
+        _check_dates(info.data.get("calibrated_on"), value)
+        return value
 
 
 class ApparatusUpdate(_Strict):
@@ -117,10 +117,18 @@ class ApparatusUpdate(_Strict):
     is_active: bool | None = None
 
 
+REGISTER_EDITORS = frozenset({Role.LAB_MANAGER, Role.ADMIN})
+
+
+def may_edit_register(user: User) -> bool:
+    """Whether `user` adds, edits and retires register items."""
+    return user.role in REGISTER_EDITORS
+
+
 def _check_dates(calibrated_on: date | None, calibration_due: date | None) -> None:
     if calibrated_on and calibration_due and calibration_due < calibrated_on:
         raise ValueError(
-            f"calibration_due {calibration_due} is before calibrated_on {calibrated_on}; "
+            f"is before the calibration date ({calibrated_on}); "
             "accepted: a due date on or after the calibration date"
         )
 
@@ -174,22 +182,8 @@ def is_overdue(item: Apparatus, *, on: date) -> bool:
 
 
 def _resolution(text: str, kind: ApparatusKind) -> tuple[str, float]:
-    quantity = RESOLUTION_KIND[kind]
-    typed = text.strip()
-    loc = ("resolution",)
-    try:
-        # A resolution is a step, so '0.1 degC' is 0.1 K (not 273.25 K).
-        value = parse_uncertainty(typed, quantity, loc)
-    except EngineInputError as exc:
-        raise InvalidInput(str(exc), detail=problems_from(exc)) from None
-    if value <= 0:
-        raise invalid(
-            ("body", "resolution"),
-            f"resolution: must be greater than zero (got '{typed}'); accepted: a "
-            f"{quantity.name} step with its unit, such as {quantity.examples}",
-            "not_positive",
-        )
-    return typed, value
+    # A resolution is a step, so '0.1 degC' is 0.1 K (not 273.25 K).
+    return typed_step(text, RESOLUTION_KIND[kind], ("resolution",))
 
 
 def _typed_columns(
@@ -202,7 +196,7 @@ def _typed_columns(
             continue
         text = getattr(data, name)
         if text:
-            columns[f"{prefix}_text"], columns[_si_column(name)] = typed_quantity(
+            columns[f"{prefix}_text"], columns[_si_column(name)] = typed(
                 text, quantity, (name,), positive=True
             )
         else:
@@ -225,7 +219,9 @@ def _refuse_duplicate_identifier(
     if apparatus_id is not None:
         query = query.where(Apparatus.id != apparatus_id)
     if session.exec(query).first() is not None:
-        raise Conflict(f"identifier: the register already has an item '{identifier}'")
+        raise Conflict(
+            f"the register already has an item '{identifier}'", detail={"field": "identifier"}
+        )
 
 
 # --- register ------------------------------------------------------------------------------
@@ -254,6 +250,15 @@ def get_apparatus(session: Session, apparatus_id: int) -> Apparatus:
     if item is None:
         raise NotFound(f"apparatus {apparatus_id} not found")
     return item
+
+
+def identifiers_of(session: Session, apparatus_ids: Iterable[int]) -> dict[int, str]:
+    """The identifiers of register items, by id."""
+    wanted = set(apparatus_ids)
+    if not wanted:
+        return {}
+    rows = session.exec(select(Apparatus).where(col(Apparatus.id).in_(wanted))).all()
+    return {item.id: item.identifier for item in rows if item.id is not None}
 
 
 def list_apparatus(
@@ -287,7 +292,13 @@ def update_apparatus(
 ) -> Apparatus:
     """Edit an item against the version the editor read; every changed field is audited."""
     item = get_apparatus(session, apparatus_id)
-    require_version(item, data.version, f"apparatus {item.identifier}", apparatus_read(item))
+    require_version(
+        item,
+        data.version,
+        f"apparatus {item.identifier}",
+        yours=data.model_dump(mode="json", exclude_unset=True, exclude={"version"}),
+        current=apparatus_read(item).model_dump(mode="json"),
+    )
     fields = data.model_fields_set - {"version"}
     changes: dict[str, Any] = {}
     for name in ("identifier", "description", "is_active"):
@@ -302,7 +313,14 @@ def update_apparatus(
             changes.get("calibration_due", item.calibration_due),
         )
     except ValueError as exc:
-        raise invalid(("body", "calibration_due"), str(exc), "date_order") from None
+        reason, accepted = str(exc).split("; accepted: ")
+        raise invalid(
+            ("calibration_due",),
+            reason,
+            value=str(changes.get("calibration_due")),
+            accepted=accepted,
+            kind="date_order",
+        ) from None
     if "identifier" in changes:
         _refuse_duplicate_identifier(session, changes["identifier"], item.id)
     changes.update(_typed_columns(data, ApparatusKind(item.kind), fields))

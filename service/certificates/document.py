@@ -15,7 +15,7 @@ from sqlmodel import Session, col, select
 
 from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
-from service.common import CertificateKind, OrganisationKind, Preparation, TestMethod
+from service.common import CertificateKind, OrganisationKind, Preparation
 from service.config import get_settings
 from service.lab_tests.models import (
     PermeabilityTest,
@@ -24,6 +24,7 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
+from service.lab_tests.reduction import Scope, catalogue
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -39,12 +40,6 @@ CAUTIONS = (
     "with its verification code.",
 )
 
-METHOD_LABELS = {
-    TestMethod.CONSTANT_HEAD: "Constant head",
-    TestMethod.FALLING_HEAD: "Falling head, constant tailwater",
-    TestMethod.FALLING_HEAD_RISING_TAIL: "Falling headwater, rising tailwater",
-    TestMethod.CONSTANT_RATE: "Constant rate of flow",
-}
 PREPARATION_LABELS = {
     Preparation.INTACT: "Intact (trimmed from the sample)",
     Preparation.REMOULDED: "Remoulded",
@@ -62,19 +57,6 @@ CHECK_LABELS = {
     "hazen": "Plausibility (Hazen)",
     "darcy_linearity": "Darcy linearity",
 }
-# Order and labels of typed trial entries in the trials table.
-ENTRY_LABELS = (
-    ("volume", "V"),
-    ("water_mass", "m"),
-    ("head_difference", "dh"),
-    ("head_initial", "h1"),
-    ("head_final", "h2"),
-    ("duration", "t"),
-    ("inflow_volume", "Vin"),
-    ("outflow_volume", "Vout"),
-    ("flow_rate", "Q"),
-    ("pressure_difference", "dp"),
-)
 SIGNOFF_LABELS = {
     "performed": "Performed",
     "reviewed": "Reviewed",
@@ -120,7 +102,6 @@ class TrialLine:
 
 @dataclass(frozen=True)
 class TestSection:
-    __test__ = False
     test_id: int
     series: int
     revision: int
@@ -231,7 +212,9 @@ def _entries_text(entries: dict[str, Any]) -> str:
             f"{_quantity_text(last.get('head', ''))} in {_quantity_text(last.get('time', ''))}"
         )
     parts = [
-        f"{label} {_quantity_text(entries[key])}" for key, label in ENTRY_LABELS if key in entries
+        f"{entry.symbol or entry.label} {_quantity_text(entries[entry.id])}"
+        for entry in catalogue.entries(Scope.TRIAL)
+        if entry.id in entries and entry.id != "temperature"
     ]
     return ", ".join(parts)
 
@@ -247,21 +230,13 @@ def _specimen_rows(
 ) -> tuple[tuple[tuple[str, str], ...], tuple[tuple[str, str], ...]]:
     measured: list[tuple[str, str]] = []
     if specimen is not None:
-        for label, text in (
-            ("Diameter", specimen.diameter_text),
-            ("Length", specimen.length_text),
-            ("Diameter at permeation", specimen.final_diameter_text),
-            ("Length at permeation", specimen.final_length_text),
-            ("Wet mass", specimen.wet_mass_text),
-            ("Water content", specimen.water_content_text),
-            ("Max. dry density (reference)", specimen.max_dry_density_text),
-            ("D10", specimen.d10_text),
-            ("Largest particle", specimen.max_particle_size_text),
-        ):
+        for entry in catalogue.entries(Scope.SPECIMEN):
+            text = getattr(specimen, f"{entry.id}_text", "")
             if text:
-                measured.append((label, text))
+                measured.append((entry.label, text))
         if specimen.specific_gravity is not None:
-            measured.append(("Specific gravity Gs", f"{specimen.specific_gravity:g}"))
+            gravity = catalogue.entry(Scope.SPECIMEN, "specific_gravity")
+            measured.append((f"{gravity.label} {gravity.symbol}", f"{specimen.specific_gravity:g}"))
     derived = result.get("specimen", {}) or {}
     state: list[tuple[str, str]] = []
     for label, key, pattern, scale, unit in (
@@ -283,13 +258,10 @@ def _conditions(
     test: PermeabilityTest, saturation: Sequence[SaturationStep]
 ) -> list[tuple[str, str]]:
     rows: list[tuple[str, str]] = []
-    for label, text in (
-        ("Cell pressure", test.cell_pressure_text),
-        ("Back pressure", test.back_pressure_text),
-        ("Effective confining stress", test.effective_confining_text),
-    ):
+    for name in ("cell_pressure", "back_pressure", "effective_confining"):
+        text = getattr(test, f"{name}_text")
         if text:
-            rows.append((label, text))
+            rows.append((catalogue.entry(Scope.TEST, name).label, text))
     if saturation:
         last = max(saturation, key=lambda step: step.seq)
         rows.append(("B-value (final step)", f"{last.b_value:.2f} at {last.back_pressure_text}"))
@@ -412,7 +384,7 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
         revision=test.revision,
         correction_reason=test.correction_reason,
         method=test.method,
-        method_label=METHOD_LABELS.get(TestMethod(test.method), test.method),
+        method_label=catalogue.method_name(test.method),
         standard=test.standard or "-",
         permeant=test.permeant,
         reference_temperature_c=float(result.get("reference_temperature_c", 20.0)),

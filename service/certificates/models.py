@@ -57,7 +57,6 @@ class Certificate(SQLModel, table=True):
 class CertificateTest(SQLModel, table=True):
     """The approved tests a certificate reports."""
 
-    __test__ = False
     __tablename__ = "certificate_test"
 
     certificate_id: int = Field(foreign_key="certificate.id", primary_key=True)

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlmodel import Session, col, select
+from sqlmodel import Session, col, func, select
 
 from service.access import get_visible, is_client
 from service.accounts.models import User
@@ -41,8 +41,9 @@ from service.certificates.signing import (
 from service.common import CertificateKind, CertificateState, Role, SignOffMeaning, TestState
 from service.db import utcnow
 from service.errors import InvalidInput, InvalidTransition, NotFound, PermissionDenied
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.service import mark_issued
+from service.paging import MAX_LIMIT, paginate
 from service.projects.models import Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -307,7 +308,7 @@ def issue_sample_certificate(
     reported = {t.id for t in tests}
     for test in newly_approved:
         assert test.id is not None
-        mark_issued(session, test.id, actor=actor)  # the lifecycle's approved -> issued
+        lab_tests.mark_issued(session, test.id, actor=actor)  # the lifecycle's approved -> issued
         _sign_issued(session, test, actor, certificate, now)
     # Revisions replaced by a correction on this certificate stop being current.
     for test in all_tests:
@@ -452,8 +453,11 @@ def list_certificates(
     user: User,
     project_id: int | None = None,
     sample_id: int | None = None,
-) -> list[Certificate]:
-    """Certificates the user may see, narrowed to a project or a sample (404 if not visible)."""
+    limit: int = MAX_LIMIT,
+    offset: int = 0,
+) -> tuple[list[Certificate], int]:
+    """One page of the certificates the user may see, narrowed to a project or a sample
+    (404 if that is not visible), and how many there are."""
     query = select(Certificate).join(Project, col(Project.id) == col(Certificate.project_id))
     if project_id is not None:
         get_visible(session, Project, project_id, user, "project")
@@ -464,7 +468,32 @@ def list_certificates(
     if is_client(user):
         query = query.where(Project.client_id == user.organisation_id)
     query = query.order_by(col(Certificate.number), col(Certificate.revision))
-    return list(session.exec(query).all())
+    return paginate(session, query, limit=limit, offset=offset)
+
+
+def current_certificates(session: Session, sample_ids: Sequence[int]) -> dict[int, Certificate]:
+    """Each sample's certificate in force (state issued)."""
+    if not sample_ids:
+        return {}
+    found = session.exec(
+        select(Certificate).where(
+            col(Certificate.sample_id).in_(list(sample_ids)),
+            Certificate.state == CertificateState.ISSUED,
+        )
+    ).all()
+    return {c.sample_id: c for c in found if c.sample_id is not None}
+
+
+def tests_per_certificate(session: Session, certificate_ids: Sequence[int]) -> dict[int, int]:
+    """How many tests each certificate reports."""
+    if not certificate_ids:
+        return {}
+    rows = session.exec(
+        select(CertificateTest.certificate_id, func.count())
+        .where(col(CertificateTest.certificate_id).in_(list(certificate_ids)))
+        .group_by(col(CertificateTest.certificate_id))
+    ).all()
+    return {certificate_id: int(count) for certificate_id, count in rows}
 
 
 def get_certificate(session: Session, certificate_id: int, *, user: User) -> Certificate:

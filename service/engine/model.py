@@ -9,9 +9,8 @@ from __future__ import annotations
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
+from service.engine import catalogue
 from service.engine.checks import Check
-
-METHODS = ("constant_head", "falling_head", "falling_head_rising_tail", "constant_rate")
 
 
 @dataclass(frozen=True, slots=True)
@@ -76,19 +75,8 @@ class Reading:
     head_u_m: float | None = None
 
 
-TRIAL_NUMBERS = (
-    "volume_m3",
-    "water_mass_kg",
-    "duration_s",
-    "head_difference_m",
-    "pressure_difference_pa",
-    "inflow_volume_m3",
-    "outflow_volume_m3",
-    "head_initial_m",
-    "head_final_m",
-    "flow_rate_m3_per_s",
-    "temperature_c",
-)
+# The trial's numeric fields, named as the catalogue's trial entries name them.
+TRIAL_NUMBERS = tuple(dict.fromkeys(e.si_field for e in catalogue.TRIAL if e.si_field))
 
 
 @dataclass(frozen=True, slots=True)

@@ -2,18 +2,22 @@
 
 This is the single boundary where units are converted: everything after it is SI floats.
 Every problem found is collected, so a refused form can show all its bad fields at once.
+Which fields each section takes, their kinds, and what a method's trials must give come
+from the method catalogue (:mod:`service.engine.catalogue`); messages name fields by their
+catalogue labels.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Collection, Mapping
+from dataclasses import dataclass
 from typing import Any
 
-from service.engine import units
+from service.engine import catalogue, units
+from service.engine.catalogue import Method, Need, Scope
 from service.engine.errors import EngineInputError, InputProblem, Loc
 from service.engine.model import (
-    METHODS,
     Apparatus,
     Options,
     Reading,
@@ -24,7 +28,7 @@ from service.engine.model import (
 )
 from service.engine.phase import cylinder_area, phase_relations
 from service.engine.reductions import rising_tail_final_head
-from service.engine.rules import DECISION_RULES, PERMEAMETERS, STANDARDS
+from service.engine.rules import DECISION_RULES, PERMEAMETERS
 from service.engine.water import MAX_TEMPERATURE_C, MIN_TEMPERATURE_C, water_density
 
 MAX_TRIALS = 500
@@ -42,51 +46,23 @@ TOP_KEYS = (
     "permeameter",
 )
 
-# Field name -> (kind, SI field name, must be > 0)
-SPECIMEN_FIELDS: dict[str, tuple[units.Kind, str, bool]] = {
-    "length": (units.LENGTH, "length_m", True),
-    "diameter": (units.LENGTH, "diameter_m", True),
-    "area": (units.AREA, "area_m2", True),
-    "wet_mass": (units.MASS, "wet_mass_kg", True),
-    "water_content": (units.FRACTION, "water_content", False),
-    "specific_gravity": (units.NUMBER, "specific_gravity", True),
-    "max_dry_density": (units.DENSITY, "max_dry_density_kg_per_m3", True),
-    "void_ratio": (units.NUMBER, "void_ratio", True),
-    "d10": (units.LENGTH, "d10_m", True),
-    "max_particle_size": (units.LENGTH, "max_particle_size_m", True),
-    "retained_on_lower_sieve": (units.FRACTION, "retained_on_lower_sieve", False),
-}
-APPARATUS_FIELDS: dict[str, tuple[units.Kind, str, bool]] = {
-    "standpipe_area": (units.AREA, "standpipe_area_m2", True),
-    "standpipe_diameter": (units.LENGTH, "standpipe_area_m2", True),
-    "headwater_area": (units.AREA, "headwater_area_m2", True),
-    "headwater_diameter": (units.LENGTH, "headwater_area_m2", True),
-    "tailwater_area": (units.AREA, "tailwater_area_m2", True),
-    "tailwater_diameter": (units.LENGTH, "tailwater_area_m2", True),
-    "manometer_spacing": (units.LENGTH, "manometer_spacing_m", True),
-}
-TRIAL_FIELDS: dict[str, tuple[units.Kind, str, bool]] = {
-    "volume": (units.VOLUME, "volume_m3", True),
-    "water_mass": (units.MASS, "water_mass_kg", True),
-    "duration": (units.DURATION, "duration_s", True),
-    "head_difference": (units.LENGTH, "head_difference_m", True),
-    "pressure_difference": (units.PRESSURE, "pressure_difference_pa", True),
-    "inflow_volume": (units.VOLUME, "inflow_volume_m3", True),
-    "outflow_volume": (units.VOLUME, "outflow_volume_m3", True),
-    "head_initial": (units.LENGTH, "head_initial_m", True),
-    "head_final": (units.LENGTH, "head_final_m", True),
-    "flow_rate": (units.FLOW_RATE, "flow_rate_m3_per_s", True),
-    "temperature": (units.TEMPERATURE, "temperature_c", False),
-}
-READING_FIELDS: dict[str, tuple[units.Kind, str, bool]] = {
-    "time": (units.TIME, "time_s", False),
-    "head": (units.LENGTH, "head_m", True),
-}
-OPTION_QUANTITIES: dict[str, tuple[units.Kind, str, bool]] = {
-    "reference_temperature": (units.TEMPERATURE, "reference_temperature_c", False),
-    "viscosity": (units.VISCOSITY, "viscosity_pa_s", True),
-    "unit_weight": (units.UNIT_WEIGHT, "unit_weight_n_per_m3", True),
-}
+Table = dict[str, tuple[units.Kind, str, bool]]
+
+
+def _quantities(scope: Scope) -> Table:
+    """Field name -> (kind, engine field, must be > 0) for the quantities of one scope."""
+    return {
+        e.id: (e.kind, e.si_field, e.positive)
+        for e in catalogue.entries(scope)
+        if e.is_quantity and (e.si_field or scope is Scope.TRIAL)
+    }
+
+
+SPECIMEN_FIELDS = _quantities(Scope.SPECIMEN)
+APPARATUS_FIELDS = _quantities(Scope.APPARATUS)
+TRIAL_FIELDS = _quantities(Scope.TRIAL)
+READING_FIELDS = _quantities(Scope.READING)
+OPTION_QUANTITIES = _quantities(Scope.OPTION)
 ALL_QUANTITY_FIELDS = {
     **SPECIMEN_FIELDS,
     **APPARATUS_FIELDS,
@@ -94,47 +70,19 @@ ALL_QUANTITY_FIELDS = {
     **READING_FIELDS,
     **OPTION_QUANTITIES,
 }
-
-METHOD_TRIAL_KEYS = {
-    "constant_head": {
-        "volume",
-        "water_mass",
-        "inflow_volume",
-        "outflow_volume",
-        "duration",
-        "head_difference",
-        "pressure_difference",
-        "temperature",
-    },
-    "falling_head": {
-        "head_initial",
-        "head_final",
-        "duration",
-        "temperature",
-        "inflow_volume",
-        "outflow_volume",
-        "readings",
-    },
-    "falling_head_rising_tail": {
-        "head_initial",
-        "head_final",
-        "duration",
-        "temperature",
-        "inflow_volume",
-        "outflow_volume",
-        "readings",
-    },
-    "constant_rate": {
-        "flow_rate",
-        "pressure_difference",
-        "head_difference",
-        "temperature",
-        "inflow_volume",
-        "outflow_volume",
-    },
-}
-CORRECTIONS = ("iapws", "astm_d5084")
-DENSITY_CONVENTIONS = ("temperature", "nominal")
+# Plausible ranges of specimen entries (SI): name, lowest, highest, accepted, reason. The
+# specific gravity must be above 1 (solids heavier than water); the others include their ends.
+SPECIMEN_RANGES = (
+    ("water_content", 0.0, 10.0, "a fraction such as 0.224 or a percentage such as '22.4 %'",
+     "is not from 0 to 1000 %: a percentage needs its '%' sign"),
+    ("specific_gravity", 1.0, 6.0, "a number above 1 and at most 6, such as 2.70",
+     "is not a plausible specific gravity of solids"),
+    ("retained_on_lower_sieve", 0.0, 1.0, "a percentage from 0 to 100 %, such as '40 %'",
+     "is not from 0 to 100 %"),
+)  # fmt: skip
+B_VALUE = "a B-value from 0 to 1.1, such as 0.96"
+CORRECTIONS = catalogue.entry(Scope.OPTION, "temperature_correction").choices
+DENSITY_CONVENTIONS = catalogue.entry(Scope.OPTION, "water_density").choices
 
 
 class _Reader:
@@ -142,6 +90,7 @@ class _Reader:
 
     def __init__(self, default_uncertainties: Mapping[str, Any] | None) -> None:
         self.problems: list[InputProblem] = []
+        self.values: dict[Loc, float] = {}  # every quantity read, by its location, in SI
         self._defaults_raw = dict(default_uncertainties or {})
         self._defaults: dict[str, float | None] = {}
         for key in self._defaults_raw:
@@ -175,7 +124,7 @@ class _Reader:
                     self._defaults[name] = None
         return self._defaults[name]
 
-    def section(self, raw: Any, loc: Loc, allowed: set[str] | tuple[str, ...]) -> dict[str, Any]:
+    def section(self, raw: Any, loc: Loc, allowed: Collection[str]) -> dict[str, Any]:
         """Return a JSON object's ``allowed`` keys (None values dropped), refusing the others."""
         if raw is None:
             return {}
@@ -199,17 +148,26 @@ class _Reader:
         name: str,
         loc: Loc,
         table: Mapping[str, tuple[units.Kind, str, bool]],
+        *,
+        u_as: str = "",
     ) -> tuple[float, float | None] | None:
+        """Read the quantity ``name`` of ``data`` as (SI value, u), or None.
+
+        ``u_as`` names the field whose default uncertainty applies (by default its own).
+        """
         if name not in data:
             return None
         kind, _, positive = table[name]
+        default_u = self.default_u(u_as or name)
         try:
-            return units.parse_quantity(
-                data[name], kind, (*loc, name), positive=positive, default_u=self.default_u(name)
+            got = units.parse_quantity(
+                data[name], kind, (*loc, name), positive=positive, default_u=default_u
             )
         except EngineInputError as exc:
             self.problems.extend(exc.problems)
             return None
+        self.values[(*loc, name)] = got[0]
+        return got
 
     def choice(
         self, data: Mapping[str, Any], name: str, loc: Loc, accepted: tuple[Any, ...], default: Any
@@ -282,32 +240,67 @@ def _read_options(reader: _Reader, raw: Any) -> Options:
     )
 
 
-def _one_of(
+def _needed_by(method: Method) -> str:
+    return f"is required for the {method.name.lower()} method"
+
+
+def _given(
     reader: _Reader,
     data: Mapping[str, Any],
     loc: Loc,
-    names: tuple[str, str],
-    table: Mapping[str, tuple[units.Kind, str, bool]],
-) -> tuple[str, tuple[float, float | None]] | None:
-    present = [n for n in names if n in data]
-    if len(present) == 2:
+    need: Need,
+    what: str,
+    reason: str = "is required",
+) -> None:
+    """Refuse what does not meet ``need``: nothing of it given, or two alternatives at once."""
+    present = [i for i in need.one_of if i in data]
+    if len(present) > 1:
+        first, second = (_noun(loc, i) for i in present[:2])
         reader.add(
-            (*loc, names[1]),
-            data[names[1]],
-            f"either {names[0]} or {names[1]}, not both",
-            f"both {names[0]} and {names[1]} were given",
+            (*loc, present[1]),
+            data[present[1]],
+            f"{first} or {second}, not both",
+            f"{first} was also given",
             "ambiguous",
         )
+    elif not present and not (need.or_all and all(i in data for i in need.or_all)):
+        reader.add((*loc, need.one_of[0]), None, what, reason, "missing")
+
+
+def _noun(loc: Loc, entry_id: str) -> str:
+    found = catalogue.find(Scope(str(loc[0])), entry_id)
+    return found.noun if found is not None else entry_id
+
+
+def _area(
+    reader: _Reader,
+    data: Mapping[str, Any],
+    loc: Loc,
+    name: str,
+    table: Table,
+    *,
+    circle: bool = True,
+    u_as: str = "",
+) -> tuple[float, float, float | None] | None:
+    """Read a size as (the value in SI, what it gives, its u).
+
+    A length given for an area (``circle``) is a diameter and gives the circle's area;
+    anything else gives itself.
+    """
+    got = reader.quantity(data, name, loc, table, u_as=u_as)
+    if got is None:
         return None
-    if not present:
-        return None
-    got = reader.quantity(data, present[0], loc, table)
-    return (present[0], got) if got is not None else None
+    value, u_value = got
+    if not circle or table[name][0] is not units.LENGTH:
+        return value, value, u_value
+    area = cylinder_area(value)
+    return value, area, (2.0 * area * u_value / value if u_value is not None else None)
 
 
 def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str, float]]:
     loc: Loc = ("specimen",)
-    data = reader.section(raw, loc, (*SPECIMEN_FIELDS, "stiff_material"))
+    allowed = {e.id for e in catalogue.entries(Scope.SPECIMEN) if e.si_field or e.replaces}
+    data = reader.section(raw, loc, allowed)
     values: dict[str, Any] = {}
     u: dict[str, float] = {}
     for name, (_, field_name, _) in SPECIMEN_FIELDS.items():
@@ -318,53 +311,48 @@ def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str,
             values[field_name] = got[0]
             if got[1] is not None:
                 u[field_name] = got[1]
-    size = _one_of(reader, data, loc, ("diameter", "area"), SPECIMEN_FIELDS)
-    if size is not None:
-        name, (value, u_value) = size
+    for need in catalogue.SPECIMEN_NEEDS:
+        before = len(reader.problems)
+        _given(reader, data, loc, need, catalogue.need_text(need))
+        if len(reader.problems) > before:
+            continue
+        name = next(i for i in need.one_of if i in data)
+        size = _area(reader, data, loc, name, SPECIMEN_FIELDS)
+        if size is None:
+            continue
+        values["area_m2"] = size[1]
+        if size[2] is not None:
+            u["area_m2"] = size[2]
         if name == "diameter":
-            values["diameter_m"] = value
-            values["area_m2"] = cylinder_area(value)
-            if u_value is not None:
-                u["area_m2"] = 2.0 * values["area_m2"] * u_value / value
+            values["diameter_m"] = size[0]
+    # A value that replaces another (the length after consolidation replaces the length as
+    # prepared) is reduced in its place; the one it replaces is checked and kept as read.
+    for item in catalogue.entries(Scope.SPECIMEN):
+        if not (item.replaces and item.id in data):
+            continue
+        table = {item.id: (item.kind, "", item.positive)}
+        if item.replaces == "diameter":
+            size = _area(reader, data, loc, item.id, table, u_as=item.replaces)
+            if size is not None:
+                values["diameter_m"], values["area_m2"] = size[0], size[1]
+                u.pop("area_m2", None)
+                if size[2] is not None:
+                    u["area_m2"] = size[2]
         else:
-            values["area_m2"] = value
-            if u_value is not None:
-                u["area_m2"] = u_value
-    elif "diameter" not in data and "area" not in data:
-        reader.add(
-            (*loc, "diameter"),
-            None,
-            "a diameter such as '7.1 cm', or an area",
-            "is required",
-            "missing",
-        )
-    w = values.get("water_content")
-    if w is not None and w > 10.0:
-        reader.add(
-            (*loc, "water_content"),
-            data["water_content"],
-            "a fraction such as 0.224 or a percentage such as '22.4 %'",
-            "is above 1000 %: a percentage needs its '%' sign",
-            "out_of_range",
-        )
-    gs = values.get("specific_gravity")
-    if gs is not None and not 1.0 < gs <= 6.0:
-        reader.add(
-            (*loc, "specific_gravity"),
-            data["specific_gravity"],
-            "a number above 1 and at most 6, such as 2.70",
-            "is not a plausible specific gravity of solids",
-            "out_of_range",
-        )
-    r = values.get("retained_on_lower_sieve")
-    if r is not None and r > 1.0:
-        reader.add(
-            (*loc, "retained_on_lower_sieve"),
-            data["retained_on_lower_sieve"],
-            "a percentage from 0 to 100 %, such as '40 %'",
-            "is above 100 %",
-            "out_of_range",
-        )
+            field_name = SPECIMEN_FIELDS[item.replaces][1]
+            got = reader.quantity(data, item.id, loc, table, u_as=item.replaces)
+            if got is not None:
+                values[field_name] = got[0]
+                u.pop(field_name, None)
+                if got[1] is not None:
+                    u[field_name] = got[1]
+    for name, low, high, accepted, reason in SPECIMEN_RANGES:
+        value = values.get(SPECIMEN_FIELDS[name][1])
+        if value is None:
+            continue
+        inside = low < value <= high if name == "specific_gravity" else low <= value <= high
+        if not inside:
+            reader.add((*loc, name), data[name], accepted, reason, "out_of_range")
     stiff = data.get("stiff_material", False)
     if not isinstance(stiff, bool):
         reader.add((*loc, "stiff_material"), stiff, "true or false", "is not a boolean", "bad_type")
@@ -373,30 +361,40 @@ def _read_specimen(reader: _Reader, raw: Any) -> tuple[dict[str, Any], dict[str,
     return values, u
 
 
-def _read_apparatus(reader: _Reader, raw: Any) -> Apparatus:
+def _read_apparatus(reader: _Reader, raw: Any, method: Method | None) -> Apparatus:
     loc: Loc = ("apparatus",)
     data = reader.section(raw, loc, tuple(APPARATUS_FIELDS))
     values: dict[str, float] = {}
     u: dict[str, float] = {}
-    for base in ("standpipe", "headwater", "tailwater"):
-        size = _one_of(reader, data, loc, (f"{base}_area", f"{base}_diameter"), APPARATUS_FIELDS)
-        if size is None:
+    # Each engine field once: an area, or the diameter it is worked out from.
+    by_field: dict[str, list[str]] = {}
+    for name, (_, field_name, _) in APPARATUS_FIELDS.items():
+        by_field.setdefault(field_name, []).append(name)
+    for field_name, names in by_field.items():
+        before = len(reader.problems)
+        _given(reader, data, loc, Need(tuple(names)), "")
+        reader.problems[before:] = [p for p in reader.problems[before:] if p.kind != "missing"]
+        if len(reader.problems) > before:
             continue
-        name, (value, u_value) = size
-        key = f"{base}_area_m2"
-        if name.endswith("diameter"):
-            values[key] = cylinder_area(value)
-            if u_value is not None:
-                u[key] = 2.0 * values[key] * u_value / value
-        else:
-            values[key] = value
-            if u_value is not None:
-                u[key] = u_value
-    got = reader.quantity(data, "manometer_spacing", loc, APPARATUS_FIELDS)
-    if got is not None:
-        values["manometer_spacing_m"] = got[0]
-        if got[1] is not None:
-            u["manometer_spacing_m"] = got[1]
+        chosen = next((i for i in names if i in data), None)
+        if chosen is None:
+            continue
+        circle = field_name.endswith("_area_m2")
+        got = _area(reader, data, loc, chosen, APPARATUS_FIELDS, circle=circle)
+        if got is not None:
+            values[field_name] = got[1]
+            if got[2] is not None:
+                u[field_name] = got[2]
+    if method is not None:
+        for need in method.apparatus_needs:
+            if not any(i in data for i in need.ids):
+                reader.add(
+                    (*loc, need.one_of[0]),
+                    None,
+                    catalogue.need_text(need),
+                    _needed_by(method),
+                    "missing",
+                )
     return Apparatus(**values, u=u)
 
 
@@ -409,43 +407,20 @@ def _read_saturation(reader: _Reader, raw: Any) -> tuple[SaturationStep, ...]:
         )
         return ()
     steps = []
+    table = {e.id: (e.kind, e.si_field, e.positive) for e in catalogue.entries(Scope.SATURATION)}
     for j, item in enumerate(raw):
         loc: Loc = ("saturation", j)
-        data = reader.section(item, loc, ("back_pressure", "b_value"))
-        back = None
-        if "back_pressure" in data:
-            try:
-                back = units.parse_quantity(
-                    data["back_pressure"], units.PRESSURE, (*loc, "back_pressure"), positive=False
-                )[0]
-            except EngineInputError as exc:
-                reader.problems.extend(exc.problems)
+        data = reader.section(item, loc, tuple(table))
+        back = reader.quantity(data, "back_pressure", loc, table)
+        b = reader.quantity(data, "b_value", loc, table)
         if "b_value" not in data:
+            reader.add((*loc, "b_value"), None, B_VALUE, "is required", "missing")
+        elif b is not None and not 0.0 <= b[0] <= 1.1:
             reader.add(
-                (*loc, "b_value"),
-                None,
-                "a B-value from 0 to 1.1, such as 0.96",
-                "is required",
-                "missing",
+                (*loc, "b_value"), data["b_value"], B_VALUE, "is out of range", "out_of_range"
             )
-            continue
-        try:
-            b = units.parse_quantity(
-                data["b_value"], units.NUMBER, (*loc, "b_value"), positive=False
-            )[0]
-        except EngineInputError as exc:
-            reader.problems.extend(exc.problems)
-            continue
-        if not 0.0 <= b <= 1.1:
-            reader.add(
-                (*loc, "b_value"),
-                data["b_value"],
-                "a B-value from 0 to 1.1, such as 0.96",
-                "is out of range",
-                "out_of_range",
-            )
-            continue
-        steps.append(SaturationStep(b_value=b, back_pressure_pa=back))
+        elif b is not None:
+            steps.append(SaturationStep(b_value=b[0], back_pressure_pa=back[0] if back else None))
     return tuple(steps)
 
 
@@ -484,6 +459,15 @@ def _read_readings(reader: _Reader, raw: Any, loc: Loc) -> tuple[Reading, ...] |
                 reader.add(
                     (*rloc, name), None, READING_FIELDS[name][0].examples, "is required", "missing"
                 )
+        if t is not None and t[0] < 0.0:
+            reader.add(
+                (*rloc, "time"),
+                data["time"],
+                "a time from the start of the run, zero or later, such as '0 s' or '10 min'",
+                "is before the start of the run",
+                "negative",
+            )
+            t = None
         if t is None or h is None:
             ok = False
             continue
@@ -521,28 +505,31 @@ def _read_readings(reader: _Reader, raw: Any, loc: Loc) -> tuple[Reading, ...] |
     return tuple(out)
 
 
-def _read_trial(reader: _Reader, raw: Any, j: int, method: str, options: Options) -> Trial | None:
+def _read_trial(
+    reader: _Reader, raw: Any, j: int, method: Method, options: Options
+) -> Trial | None:
     loc: Loc = ("trials", j)
-    allowed = METHOD_TRIAL_KEYS.get(method, set().union(*METHOD_TRIAL_KEYS.values()))
+    allowed = method.trial_keys
     if isinstance(raw, Mapping):
         for key in raw:
-            known = key in TRIAL_FIELDS or key == "readings"
+            known = key in catalogue.all_trial_keys()
             if known and key not in allowed and raw[key] is not None:
                 reader.add(
                     (*loc, key),
                     raw[key],
-                    "for method " + method + ": " + ", ".join(sorted(allowed)),
-                    f"is not used by method '{method}'",
+                    f"for the {method.name.lower()} method: " + ", ".join(sorted(allowed)),
+                    f"is not used by the {method.name.lower()} method",
                     "unknown_field",
                 )
-    data = reader.section(raw, loc, set(TRIAL_FIELDS) | {"readings"})
+    data = reader.section(raw, loc, catalogue.all_trial_keys())
     data = {k: v for k, v in data.items() if k in allowed}
     before = len(reader.problems)
     values: dict[str, Any] = {}
     u: dict[str, float] = {}
-    for name, (_, field_name, _) in TRIAL_FIELDS.items():
-        got = reader.quantity(data, name, loc, TRIAL_FIELDS)
-        if got is not None:
+    table = {e.id: (e.kind, e.si_field, e.positive) for e in method.trial_entries}
+    for name, (_, field_name, _) in table.items():
+        got = reader.quantity(data, name, loc, table)
+        if got is not None and field_name:  # entries without an engine field are only checked
             values[field_name] = got[0]
             if got[1] is not None:
                 u[field_name] = got[1]
@@ -558,106 +545,78 @@ def _read_trial(reader: _Reader, raw: Any, j: int, method: str, options: Options
                 "is below 10 °C, where the ASTM D5084 R_T formula drifts",
                 "out_of_range",
             )
-
-    def need(name: str, example: str) -> None:
-        if name not in data:
-            reader.add((*loc, name), None, example, f"is required for method '{method}'", "missing")
-
-    def exactly_one(names: tuple[str, ...], accepted: str) -> None:
-        present = [n for n in names if n in data]
-        if not present:
-            reader.add(
-                (*loc, names[0]), None, accepted, f"is required for method '{method}'", "missing"
-            )
-        elif len(present) > 1:
-            reader.add(
-                (*loc, present[1]),
-                data[present[1]],
-                accepted,
-                f"{present[0]} was also given",
-                "ambiguous",
-            )
-
-    if method == "constant_head":
-        need("duration", "a duration such as '120 s'")
-        exactly_one(
-            ("head_difference", "pressure_difference"),
-            "one of head_difference (a length) or pressure_difference",
-        )
-        if "volume" in data and "water_mass" in data:
-            reader.add(
-                (*loc, "water_mass"),
-                data["water_mass"],
-                "either volume or water_mass",
-                "volume was also given",
-                "ambiguous",
-            )
-        if not ({"volume", "water_mass"} & set(data)) and not {
-            "inflow_volume",
-            "outflow_volume",
-        } <= set(data):
-            reader.add(
-                (*loc, "volume"),
-                None,
-                "volume, water_mass, or both inflow_volume and outflow_volume",
-                "is required for method 'constant_head'",
-                "missing",
-            )
-    elif method == "constant_rate":
-        need("flow_rate", "a flow rate such as '0.5 mL/min'")
-        exactly_one(
-            ("pressure_difference", "head_difference"),
-            "one of pressure_difference or head_difference (a length)",
-        )
-    elif method in ("falling_head", "falling_head_rising_tail"):
-        if "readings" in data:
-            for name in ("head_initial", "head_final", "duration"):
-                if name in data:
-                    reader.add(
-                        (*loc, name),
-                        data[name],
-                        "either readings or head_initial/head_final/duration",
-                        "cannot be combined with readings",
-                        "ambiguous",
-                    )
-            readings = _read_readings(reader, data["readings"], (*loc, "readings"))
-            values["readings"] = readings
-        else:
-            need("head_initial", "a head difference such as '100 cm'")
-            need("duration", "a duration such as '3600 s'")
-            if "head_final" not in data and not (
-                method == "falling_head_rising_tail"
-                and {"inflow_volume", "outflow_volume"} <= set(data)
-            ):
-                accepted = "a head difference such as '70 cm'" + (
-                    ", or inflow_volume and outflow_volume"
-                    if method == "falling_head_rising_tail"
-                    else ""
-                )
+    if "readings" in data:
+        for name in method.replaced_by_readings:
+            if name in data:
                 reader.add(
-                    (*loc, "head_final"),
-                    None,
-                    accepted,
-                    f"is required for method '{method}'",
-                    "missing",
+                    (*loc, name),
+                    data[name],
+                    f"either readings or {_noun(loc, name)}, not both",
+                    "cannot be combined with a run of readings",
+                    "ambiguous",
                 )
-            h1 = values.get("head_initial_m")
-            h2 = values.get("head_final_m")
-            if h1 is not None and h2 is not None and h2 >= h1:
-                reader.add(
-                    (*loc, "head_final"),
-                    data["head_final"],
-                    f"a head below head_initial ({data['head_initial']})",
-                    "is not below head_initial: the head did not fall",
-                    "impossible_test",
-                )
+        values["readings"] = _read_readings(reader, data["readings"], (*loc, "readings"))
+    else:
+        for need in method.needs:
+            _given(reader, data, loc, need, catalogue.need_text(need), _needed_by(method))
+        h1 = values.get("head_initial_m")
+        h2 = values.get("head_final_m")
+        if h1 is not None and h2 is not None and h2 >= h1:
+            reader.add(
+                (*loc, "head_final"),
+                data["head_final"],
+                f"a head below the head at start ({data['head_initial']})",
+                f"must be below the head at start ({data['head_initial']}): the head did not fall",
+                "impossible_test",
+            )
     if len(reader.problems) > before:
         return None
     return Trial(**values, u=u)
 
 
-def parse_request(
+@dataclass(frozen=True, slots=True)
+class Read:
+    """What :func:`read_request` made of a request.
+
+    Attributes
+    ----------
+    input : ReductionInput or None
+        The validated input; None when anything was refused.
+    problems : tuple of InputProblem
+        Every refusal, in the order found.
+    values : mapping
+        Each quantity read, by its location in the request, in SI (also when other fields
+        were refused), e.g. ``{("trials", 0, "duration"): 3600.0}``: a caller storing what
+        was typed takes its SI figures from here instead of parsing the text again.
+    """
+
+    input: ReductionInput | None
+    problems: tuple[InputProblem, ...]
+    values: Mapping[Loc, float]
+
+
+def read_request(
     payload: Mapping[str, Any], default_uncertainties: Mapping[str, Any] | None = None
+) -> Read:
+    """Validate a request like :func:`parse_request`, returning the refusals instead of raising.
+
+    Returns
+    -------
+    Read
+        The input (None if refused), every refusal, and the SI figure of each quantity read.
+    """
+    try:
+        values: dict[Loc, float] = {}
+        return Read(parse_request(payload, default_uncertainties, _values=values), (), values)
+    except EngineInputError as exc:
+        return Read(None, exc.problems, values)
+
+
+def parse_request(
+    payload: Mapping[str, Any],
+    default_uncertainties: Mapping[str, Any] | None = None,
+    *,
+    _values: dict[Loc, float] | None = None,
 ) -> ReductionInput:
     """Validate a contract-shaped request and convert it to SI.
 
@@ -684,6 +643,8 @@ def parse_request(
     if not isinstance(payload, Mapping):
         raise EngineInputError.single((), payload, "a JSON object", "is not an object", "bad_type")
     reader = _Reader(default_uncertainties)
+    if _values is not None:
+        reader.values = _values
     for key in payload:
         if key not in TOP_KEYS:
             reader.add(
@@ -693,32 +654,36 @@ def parse_request(
                 "is not a field of the request",
                 "unknown_field",
             )
-    method = payload.get("method")
-    if method not in METHODS:
+    method_id = payload.get("method")
+    method: Method | None = None
+    if method_id in catalogue.method_ids():
+        method = catalogue.method(method_id)
+    else:
         reader.add(
             ("method",),
-            method,
-            "one of " + ", ".join(METHODS),
+            method_id,
+            "one of " + ", ".join(catalogue.method_ids()),
             "is not a known method",
             "bad_choice",
         )
-        method = None
     standard = payload.get("standard")
-    if standard is not None and standard not in STANDARDS:
+    if standard is not None and standard not in catalogue.standard_ids():
         reader.add(
             ("standard",),
             standard,
-            "one of " + ", ".join(STANDARDS) + " or null",
+            "one of " + ", ".join(catalogue.standard_ids()) + " or null",
             "is not a known standard",
             "bad_choice",
         )
         standard = None
     options = _read_options(reader, payload.get("options"))
     spec_values, spec_u = _read_specimen(reader, payload.get("specimen"))
-    apparatus = _read_apparatus(reader, payload.get("apparatus"))
+    apparatus = _read_apparatus(reader, payload.get("apparatus"), method)
     saturation = _read_saturation(reader, payload.get("saturation"))
     spec = reader.section(
-        payload.get("specification"), ("specification",), ("k_max", "decision_rule")
+        payload.get("specification"),
+        ("specification",),
+        tuple(e.id for e in catalogue.entries(Scope.SPECIFICATION)),
     )
     decision_rule = reader.choice(spec, "decision_rule", ("specification",), DECISION_RULES, None)
     permeameter = None
@@ -762,7 +727,8 @@ def parse_request(
         reader.add(
             ("specimen", "length"),
             None,
-            "a length such as '11.6 cm' (or apparatus.manometer_spacing)",
+            units.accepted_text(units.LENGTH, positive=True)
+            + ", or the manometer port spacing that replaces it",
             "is required",
             "missing",
         )
@@ -775,25 +741,6 @@ def parse_request(
             "is longer than the specimen",
             "out_of_range",
         )
-    if method == "falling_head" and apparatus.standpipe_area_m2 is None:
-        reader.add(
-            ("apparatus", "standpipe_area"),
-            None,
-            "an area such as '0.283 cm**2', or standpipe_diameter",
-            "is required for method 'falling_head'",
-            "missing",
-        )
-    if method == "falling_head_rising_tail":
-        for base in ("headwater", "tailwater"):
-            if getattr(apparatus, f"{base}_area_m2") is None:
-                reader.add(
-                    ("apparatus", f"{base}_area"),
-                    None,
-                    f"an area such as '0.71 cm**2', or {base}_diameter",
-                    "is required for method 'falling_head_rising_tail'",
-                    "missing",
-                )
-
     if not reader.problems:
         _check_possible(reader, method, spec_values, apparatus, trials, raw_trials, options)
     if reader.problems:
@@ -801,7 +748,7 @@ def parse_request(
     assert method is not None
     specimen = Specimen(**spec_values, u=spec_u)
     return ReductionInput(
-        method=method,
+        method=method.id,
         standard=standard,
         options=options,
         specimen=specimen,
@@ -816,7 +763,7 @@ def parse_request(
 
 def _check_possible(
     reader: _Reader,
-    method: str | None,
+    method: Method | None,
     spec_values: Mapping[str, Any],
     apparatus: Apparatus,
     trials: list[Trial | None],
@@ -845,7 +792,7 @@ def _check_possible(
                 str(exc),
                 "impossible_test",
             )
-    if method != "falling_head_rising_tail":
+    if method is None or method.id != "falling_head_rising_tail":
         return
     a_in, a_out = apparatus.headwater_area_m2, apparatus.tailwater_area_m2
     for j, trial in enumerate(trials):
@@ -865,7 +812,7 @@ def _check_possible(
                 ("trials", j, "inflow_volume"),
                 raw_trials[j].get("inflow_volume"),
                 "burette volumes that leave a positive head: V_in/a_in + V_out/a_out below "
-                "head_initial",
+                "the head at start",
                 f"with outflow_volume they imply a final head of {h2 * 100:.2f} cm",
                 "impossible_test",
             )

@@ -26,12 +26,21 @@ Q_ = ureg.Quantity
 
 @dataclass(frozen=True, slots=True)
 class Kind:
-    """A physical kind of input: its dimensionality, canonical unit and an example for messages."""
+    """A kind of input: its dimensionality, canonical unit and examples for messages.
+
+    Besides physical quantities, three kinds describe entries that carry no unit: a yes/no
+    flag, a choice among listed words, and free text.
+    """
 
     name: str
     canonical_unit: str
     dimensionality: str
     examples: str
+
+    @property
+    def is_quantity(self) -> bool:
+        """Whether values of this kind are numbers (with a unit unless dimensionless)."""
+        return self.dimensionality not in NOT_QUANTITIES
 
 
 LENGTH = Kind("length", "m", "[length]", "'12.5 cm', '125 mm' or '4.9 in'")
@@ -54,7 +63,11 @@ UNIT_WEIGHT = Kind(
     "unit weight", "N/m**3", "[mass]/[length]**2/[time]**2", "'9.79 kN/m**3' or '62.3 lbf/ft**3'"
 )
 FRACTION = Kind("fraction or percentage", "", "dimensionless", "'18.5 %' (with its % sign)")
-NUMBER = Kind("number", "", "dimensionless", "a plain number such as 2.70")
+NUMBER = Kind("number", "", "dimensionless", "2.70 or 0.96 (no unit)")
+FLAG = Kind("yes or no", "", "flag", "true or false")
+CHOICE = Kind("choice", "", "choice", "one of the listed words")
+TEXT = Kind("text", "", "text", "a short text")
+NOT_QUANTITIES = frozenset({"flag", "choice", "text"})
 
 # Percentages and fractions must say which they are: a bare 5 is never read as 500 %.
 UNIT_REQUIRED = frozenset({FRACTION.name})

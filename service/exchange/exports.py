@@ -24,14 +24,9 @@ from service.common import CertificateState, TestState
 from service.config import get_settings
 from service.custody.models import CustodyEvent
 from service.db import utcnow
-from service.lab_tests.models import (
-    PermeabilityTest,
-    Reading,
-    SaturationStep,
-    Specimen,
-    TestApparatus,
-    Trial,
-)
+from service.lab_tests import models as tables
+from service.lab_tests.models import PermeabilityTest, Reading, SaturationStep, Specimen, Trial
+from service.lab_tests.reduction import Scope, catalogue
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -327,7 +322,7 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
     trials = by_test(Trial)
     steps = by_test(SaturationStep)
     signoffs = by_test(SignOff)
-    apparatus = by_test(TestApparatus)
+    apparatus = by_test(tables.TestApparatus)
     trial_ids = [t.id for group in trials.values() for t in group]
     readings: dict[int, list[Reading]] = {}
     for reading in session.exec(select(Reading).where(col(Reading.trial_id).in_(trial_ids))).all():
@@ -413,4 +408,22 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
             for c in certificates
         ],
         "results": {"columns": list(HEADERS), "rows": rows},
+        "entries": entry_legend(),
+    }
+
+
+def entry_legend() -> dict[str, list[dict[str, str]]]:
+    """What each typed entry of a specimen, trial or reading is (the names in `entries` and
+    the specimen records above), from the method catalogue."""
+    return {
+        scope.value: [
+            {
+                "id": entry.id,
+                "label": entry.label,
+                "symbol": entry.symbol,
+                "unit": entry.units.si if entry.units else "",
+            }
+            for entry in catalogue.entries(scope)
+        ]
+        for scope in (Scope.SPECIMEN, Scope.TRIAL, Scope.READING)
     }

@@ -14,38 +14,33 @@ from sqlmodel import Session
 
 from service.access import get_visible
 from service.accounts.models import User
-from service.common import ApparatusKind, Priority, SampleType
-from service.engine import EngineInputError, parse_request, reduce, result_to_dict
-from service.engine.units import LENGTH, TIME, conversion_for
-from service.errors import InvalidInput
-from service.exchange.files import Table, problem
-from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.payload import build_request
-from service.lab_tests.schemas import TrialCreate
-from service.lab_tests.service import (
-    apparatus_of,
-    default_uncertainties,
-    record_trial,
-    saturation_of,
-    specimen_of,
-)
-from service.samples.service import SampleBatch, SampleIn, receive_samples
-
-PERMEAMETERS = (ApparatusKind.RIGID_WALL_PERMEAMETER, ApparatusKind.FLEXIBLE_WALL_PERMEAMETER)
+from service.common import Priority, SampleType
+from service.errors import FieldProblem, InvalidInput, problems_from_validation
+from service.exchange.files import Table
+from service.lab_tests import reduction
+from service.lab_tests import service as lab_tests
+from service.lab_tests.models import PermeabilityTest, Trial
+from service.lab_tests.schemas import TrialCreate, TrialWritten
+from service.quantities import LENGTH, TIME, Kind, unit_refusal
+from service.samples.service import SampleBatch, SampleIn, check_samples, receive_samples
 
 
-def _cell_loc(row_number: int, column: str) -> list[str | int]:
-    return ["file", "row", row_number, "column", column]
+def cell_label(row_number: int, column: str) -> str:
+    """A cell of the file in words: "Row 7 · depth_top" (row 1 is the header)."""
+    return f"Row {row_number} · {column}"
 
 
-def _cell_problem(
-    row_number: int, column: str, text: str, reason: str, accepted: str, kind: str
-) -> dict[str, Any]:
-    shown = f"'{text[:40]}'" if text else "an empty cell"
-    return problem(
-        _cell_loc(row_number, column),
-        f"row {row_number}, column '{column}': {reason} (got {shown}); accepted: {accepted}",
-        kind,
+def cell_problem(
+    row_number: int, column: str, value: Any, reason: str, accepted: str = "", kind: str = ""
+) -> FieldProblem:
+    """A refused cell, at ``("file", "row", n, "column", header)``."""
+    return FieldProblem(
+        ("file", "row", row_number, "column", column),
+        reason,
+        value if value != "" else None,
+        accepted,
+        kind or "value_error",
+        cell_label(row_number, column),
     )
 
 
@@ -62,17 +57,13 @@ class ReadingsImport:
     head_header: str = "head"
 
 
-def _unit_problem(field_name: str, unit: str, kind: Any) -> dict[str, Any] | None:
-    try:
-        conversion_for(unit.strip(), kind)
-    except ValueError as exc:
-        return problem(
-            ["body", field_name],
-            f"{field_name}: {exc} (got '{unit[:30]}'); accepted: a {kind.name} unit such as "
-            f"{kind.examples}",
-            "unit",
-        )
-    return None
+def _unit_problem(field_name: str, unit: str, kind: Kind) -> FieldProblem | None:
+    reason = unit_refusal(unit, kind)
+    if reason is None:
+        return None
+    return FieldProblem(
+        (field_name,), reason, unit, f"a {kind.name} unit such as {kind.examples}", "unit"
+    )
 
 
 def parse_readings(
@@ -81,17 +72,18 @@ def parse_readings(
     """Read a time and a head column as typed numbers in the chosen units.
 
     Times must rise from row to row; heads must be above zero. Blank rows are skipped."""
-    problems: list[dict[str, Any]] = []
+    problems: list[FieldProblem] = []
     columns = ", ".join(f"'{h}'" for h in table.header)
     indexes: dict[str, int] = {}
     for name, wanted in (("time_column", time_column), ("head_column", head_column)):
         index = table.column_index(wanted)
         if index is None:
             problems.append(
-                problem(
-                    ["body", name],
-                    f"{name}: no column '{wanted[:40]}' in the file's header; accepted: one of "
-                    f"{columns} or a column number from 1 to {len(table.header)}",
+                FieldProblem(
+                    (name,),
+                    "is not a column of the file's header",
+                    wanted,
+                    f"one of {columns} or a column number from 1 to {len(table.header)}",
                     "unknown_column",
                 )
             )
@@ -99,9 +91,10 @@ def parse_readings(
             indexes[name] = index
     if len(indexes) == 2 and indexes["time_column"] == indexes["head_column"]:
         problems.append(
-            problem(
-                ["body", "head_column"],
-                f"head_column: '{head_column}' is the same column as time_column; accepted: "
+            FieldProblem(
+                ("head_column",),
+                "is the same column as the time column",
+                head_column,
                 "two different columns",
                 "same_column",
             )
@@ -111,7 +104,7 @@ def parse_readings(
         if found:
             problems.append(found)
     if problems:
-        raise InvalidInput(f"{len(problems)} problem(s) with the chosen columns", detail=problems)
+        raise InvalidInput(f"{len(problems)} problem(s) with the chosen columns", problems=problems)
 
     time_index, head_index = indexes["time_column"], indexes["head_column"]
     time_name, head_name = table.header[time_index], table.header[head_index]
@@ -128,29 +121,32 @@ def parse_readings(
             ("head", head_index, head_name, "a number greater than zero, such as 110.7"),
         ):
             text = row[index].strip()
+            if not text:
+                problems.append(cell_problem(number, name, text, "is empty", rule, "missing"))
+                continue
             try:
                 value = float(text)
             except ValueError:
                 problems.append(
-                    _cell_problem(number, name, text, "is not a number", rule, "not_a_number")
+                    cell_problem(number, name, text, "is not a number", rule, "not_a_number")
                 )
                 continue
             if not math.isfinite(value):
                 problems.append(
-                    _cell_problem(number, name, text, "is not a finite number", rule, "not_finite")
+                    cell_problem(number, name, text, "is not a finite number", rule, "not_finite")
                 )
             elif key == "time" and value < 0:
-                problems.append(_cell_problem(number, name, text, "is negative", rule, "negative"))
+                problems.append(cell_problem(number, name, text, "is negative", rule, "negative"))
             elif key == "head" and value <= 0:
                 problems.append(
-                    _cell_problem(number, name, text, "is not above zero", rule, "not_positive")
+                    cell_problem(number, name, text, "is not above zero", rule, "not_positive")
                 )
             else:
                 values[key] = value
         if "time" in values:
             if last_time is not None and values["time"] <= last_time:
                 problems.append(
-                    _cell_problem(
+                    cell_problem(
                         number,
                         time_name,
                         row[time_index].strip(),
@@ -170,15 +166,16 @@ def parse_readings(
             rows.append(number)
     if not problems and len(readings) < 2:
         problems.append(
-            problem(
-                ["file"],
-                f"file: {len(readings)} reading(s) found; accepted: at least two rows with a "
-                "time and a head",
+            FieldProblem(
+                ("file",),
+                f"has {len(readings)} reading(s)",
+                None,
+                "at least two rows with a time and a head",
                 "too_few_readings",
             )
         )
     if problems:
-        raise InvalidInput(f"{len(problems)} problem(s) in the file", detail=problems)
+        raise InvalidInput(f"{len(problems)} problem(s) in the file", problems=problems)
     return ReadingsImport(
         readings=readings, rows=rows, time_header=time_name, head_header=head_name
     )
@@ -200,11 +197,13 @@ def save_readings(
     temperature: str | None,
     idempotency_key: str | None,
     user: User,
-) -> tuple[int, dict[str, Any]]:
+) -> TrialWritten:
     """Record the imported run as a new trial through the lifecycle (same rules, same
     idempotency, same live reduction as a trial typed at the bench)."""
     data = TrialCreate.model_validate(readings_trial(imported, temperature))
-    return record_trial(session, test_id, data, idempotency_key=idempotency_key, actor=user)
+    return lab_tests.record_trial(
+        session, test_id, data, idempotency_key=idempotency_key, actor=user
+    )
 
 
 def preview_readings(
@@ -219,54 +218,27 @@ def preview_readings(
 
     An engine refusal of a reading (a head that rises, say) is reported against its file row."""
     test = get_visible(session, PermeabilityTest, test_id, user, "test")
-    apparatus = apparatus_of(session, test_id)
     trial = readings_trial(imported, temperature)
-    request = build_request(
-        test,
-        specimen=specimen_of(session, test_id),
-        trials=[],
-        saturation=saturation_of(session, test_id),
-        permeameter=next((a for a in apparatus if a.kind in PERMEAMETERS), None),
-    )
-    request["trials"] = [trial]
-    try:
-        # The same default uncertainties (from the register) as the lifecycle's reduction.
-        reduction = result_to_dict(reduce(parse_request(request, default_uncertainties(apparatus))))
-    except EngineInputError as exc:
+    run = Trial(test_id=test_id, seq=1, idempotency_key="-", entries=trial)
+    reduced = reduction.reduce_stored(session, test, trials=[run])
+    if reduced.result is None:
         raise InvalidInput(
-            "the engine refused the imported readings", detail=_engine_problems(exc, imported)
-        ) from None
-    return {"test_id": test_id, "trial": trial, "rows": imported.rows, "reduction": reduction}
+            "the engine refused the imported readings",
+            problems=[_file_problem(p, imported) for p in reduced.problems],
+        )
+    return {"test_id": test_id, "trial": trial, "rows": imported.rows, "reduction": reduced.result}
 
 
-def _engine_problems(exc: EngineInputError, imported: ReadingsImport) -> list[dict[str, Any]]:
-    out = []
-    for item in exc.problems:
-        loc = list(item.loc)
-        if (
-            len(loc) >= 4
-            and loc[0] == "trials"
-            and loc[2] == "readings"
-            and isinstance(loc[3], int)
-        ):
-            row = imported.rows[loc[3]] if loc[3] < len(imported.rows) else None
-            field_name = loc[4] if len(loc) > 4 else "head"
-            column = imported.time_header if field_name == "time" else imported.head_header
-            out.append(
-                problem(
-                    ["file", "row", row or 0, "column", str(column)],
-                    f"row {row}, column '{column}': {item.reason} (got '{item.value}'); "
-                    f"accepted: {item.accepted}",
-                    item.kind,
-                )
-            )
-        elif loc[:1] == ["trials"] and loc[2:] == ["temperature"]:
-            out.append(
-                problem(["body", "temperature"], item.msg.replace("trials[0].", ""), item.kind)
-            )
-        else:
-            out.append(problem(["test", *loc], item.msg, item.kind))
-    return out
+def _file_problem(item: FieldProblem, imported: ReadingsImport) -> FieldProblem:
+    """An engine refusal of the imported run, at the file's row and column where it has one."""
+    loc = item.loc
+    if len(loc) >= 4 and loc[:3] == ("trials", 0, "readings") and isinstance(loc[3], int):
+        row = imported.rows[loc[3]] if loc[3] < len(imported.rows) else 0
+        column = imported.time_header if loc[4:5] == ("time",) else imported.head_header
+        return cell_problem(row, column, item.value, item.reason, item.accepted, item.kind)
+    if loc[:2] == ("trials", 0) and loc[2:] == ("temperature",):
+        return item.at(("temperature",), "Temperature")
+    return item.at(("test", *loc))
 
 
 # --- sample schedules ----------------------------------------------------------------------
@@ -291,7 +263,7 @@ _NO = {"no", "n", "false", "0", "broken"}
 @dataclass
 class SchedulePreview:
     rows: list[dict[str, Any]] = field(default_factory=list)
-    errors: list[dict[str, Any]] = field(default_factory=list)
+    errors: list[FieldProblem] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -307,62 +279,88 @@ def _split_header(text: str) -> tuple[str, str]:
     return name.strip().casefold().replace(" ", "_"), unit
 
 
+def _header_problem(text: str, reason: str, accepted: str, kind: str) -> FieldProblem:
+    return cell_problem(1, text, text, reason, accepted, kind)
+
+
+def _columns(table: Table, preview: SchedulePreview) -> dict[str, tuple[int, str, str]]:
+    """The schedule's columns by key: (index, header as written, unit in the header)."""
+    columns: dict[str, tuple[int, str, str]] = {}
+    for index, text in enumerate(table.header):
+        if not text:
+            continue
+        key, unit = _split_header(text)
+        problem: FieldProblem | None = None
+        if key not in SCHEDULE_COLUMNS:
+            problem = _header_problem(
+                text, "is not a schedule column", ", ".join(SCHEDULE_COLUMNS), "unknown_column"
+            )
+        elif key in columns:
+            problem = _header_problem(text, "appears twice", "each column once", "duplicate_column")
+        elif unit and key not in ("depth_top", "depth_bottom"):
+            problem = _header_problem(text, "takes no unit", f"'{key}'", "unit")
+        elif unit and (found := _unit_problem(text, unit, LENGTH)) is not None:
+            problem = _header_problem(text, found.reason, found.accepted, "unit")
+        if problem is not None:
+            preview.errors.append(problem)
+        else:
+            columns[key] = (index, text, unit)
+    for key in REQUIRED_SCHEDULE_COLUMNS:
+        if key not in columns:
+            preview.errors.append(
+                FieldProblem(
+                    ("file", "row", 1),
+                    f"has no '{key}' column",
+                    None,
+                    "a header with at least " + ", ".join(REQUIRED_SCHEDULE_COLUMNS),
+                    "missing_column",
+                    "Row 1 (the header)",
+                )
+            )
+    return columns
+
+
+def _cell(
+    key: str, value: str, unit: str, number: int, text: str, preview: SchedulePreview
+) -> tuple[bool, Any]:
+    """(accepted, the value for the sample) of one non-empty cell."""
+    if key == "seal_intact":
+        if value.casefold() in _YES:
+            return True, True
+        if value.casefold() in _NO:
+            return True, False
+        preview.errors.append(
+            cell_problem(number, text, value, "is not yes or no", SCHEDULE_COLUMNS[key], "choice")
+        )
+        return False, None
+    if key in ("sample_type", "priority"):
+        return True, value.casefold()
+    if not unit:
+        return True, value
+    try:
+        float(value)
+    except ValueError:
+        preview.errors.append(
+            cell_problem(
+                number,
+                text,
+                value,
+                f"is not a number of {unit}",
+                f"a number such as 1.5 (the unit {unit} is in the header)",
+                "not_a_number",
+            )
+        )
+        return False, None
+    return True, f"{value} {unit}"
+
+
 def read_schedule(table: Table) -> SchedulePreview:
     """Check every row's shape (types, choices, numbers) and name each refusal's row and column.
 
     Project-dependent checks (location names, depth order, duplicates) are made by the
     reception service; see `check_schedule`."""
     preview = SchedulePreview()
-    columns: dict[str, tuple[int, str, str]] = {}  # key -> (index, header text, unit)
-    for index, text in enumerate(table.header):
-        if not text:
-            continue
-        key, unit = _split_header(text)
-        if key not in SCHEDULE_COLUMNS:
-            preview.errors.append(
-                problem(
-                    _cell_loc(1, text),
-                    f"row 1, column '{text}': not a schedule column; accepted: "
-                    + ", ".join(SCHEDULE_COLUMNS),
-                    "unknown_column",
-                )
-            )
-            continue
-        if key in columns:
-            preview.errors.append(
-                problem(
-                    _cell_loc(1, text),
-                    f"row 1, column '{text}': appears twice; accepted: each column once",
-                    "duplicate_column",
-                )
-            )
-            continue
-        if unit and key not in ("depth_top", "depth_bottom"):
-            preview.errors.append(
-                problem(
-                    _cell_loc(1, text),
-                    f"row 1, column '{text}': takes no unit; accepted: '{key}'",
-                    "unit",
-                )
-            )
-            continue
-        if unit:
-            found = _unit_problem(text, unit, LENGTH)
-            if found:
-                found["loc"] = _cell_loc(1, text)
-                preview.errors.append(found)
-                continue
-        columns[key] = (index, text, unit)
-    for key in REQUIRED_SCHEDULE_COLUMNS:
-        if key not in columns:
-            preview.errors.append(
-                problem(
-                    ["file", "row", 1],
-                    f"row 1: no '{key}' column; accepted: a header with at least "
-                    + ", ".join(REQUIRED_SCHEDULE_COLUMNS),
-                    "missing_column",
-                )
-            )
+    columns = _columns(table, preview)
     if preview.errors:
         return preview
     for offset, raw in enumerate(table.rows):
@@ -370,61 +368,27 @@ def read_schedule(table: Table) -> SchedulePreview:
         if not any(cell.strip() for cell in raw):
             continue
         data: dict[str, Any] = {}
-        headers: dict[str, str] = {}
+        headers = {key: text for key, (_, text, _) in columns.items()}
         row_ok = True
         for key, (index, text, unit) in columns.items():
             value = raw[index].strip()
-            headers[key] = text
-            if not value:
-                continue
-            if key == "seal_intact":
-                if value.casefold() in _YES:
-                    data[key] = True
-                elif value.casefold() in _NO:
-                    data[key] = False
-                else:
-                    preview.errors.append(
-                        _cell_problem(
-                            number, text, value, "is not yes or no", SCHEDULE_COLUMNS[key], "choice"
-                        )
-                    )
-                    row_ok = False
-                continue
-            if key in ("sample_type", "priority"):
-                value = value.casefold()
-            if unit:
-                try:
-                    float(value)
-                except ValueError:
-                    preview.errors.append(
-                        _cell_problem(
-                            number,
-                            text,
-                            value,
-                            f"is not a number of {unit}",
-                            f"a number such as 1.5 (the unit {unit} is in the header)",
-                            "not_a_number",
-                        )
-                    )
-                    row_ok = False
-                    continue
-                value = f"{value} {unit}"
-            data[key] = value
+            if value:
+                accepted, data[key] = _cell(key, value, unit, number, text, preview)
+                row_ok = row_ok and accepted
+        data = {k: v for k, v in data.items() if v is not None}
         try:
             row = SampleIn.model_validate(data)
         except ValidationError as exc:
-            for error in exc.errors():
-                key = str(error["loc"][0]) if error["loc"] else "row"
-                text = headers.get(key, key)
-                accepted = SCHEDULE_COLUMNS.get(key, "")
+            for problem in problems_from_validation(exc.errors()):
+                key = str(problem.loc[0]) if problem.loc else "row"
                 preview.errors.append(
-                    _cell_problem(
+                    cell_problem(
                         number,
-                        text,
-                        str(data.get(key, "")),
-                        error["msg"].lower(),
-                        accepted,
-                        error["type"],
+                        headers.get(key, key),
+                        data.get(key),
+                        problem.reason,
+                        problem.accepted or SCHEDULE_COLUMNS.get(key, ""),
+                        problem.kind,
                     )
                 )
             row_ok = False
@@ -438,9 +402,11 @@ def read_schedule(table: Table) -> SchedulePreview:
             )
     if not preview.errors and not preview.rows:
         preview.errors.append(
-            problem(
-                ["file"],
-                "file: no data rows below the header; accepted: one row per sample",
+            FieldProblem(
+                ("file",),
+                "has no data rows below the header",
+                None,
+                "one row per sample",
                 "no_rows",
             )
         )
@@ -448,27 +414,20 @@ def read_schedule(table: Table) -> SchedulePreview:
 
 
 def _reception_problems(
-    exc: InvalidInput, preview: SchedulePreview, headers: dict[str, str]
-) -> list[dict[str, Any]]:
-    """Map the reception service's ('body', 'samples', i, field) refusals to file rows."""
+    problems: list[FieldProblem], preview: SchedulePreview, headers: dict[str, str]
+) -> list[FieldProblem]:
+    """The reception service's refusals at ("samples", i, field) as the file's row and
+    column; anything else as it is."""
     out = []
-    for item in exc.detail or []:
-        loc = list(item.get("loc", []))
-        if (
-            len(loc) >= 4
-            and loc[1] == "samples"
-            and isinstance(loc[2], int)
-            and loc[2] < len(preview.rows)
-        ):
-            number = preview.rows[loc[2]]["row"]
-            key = str(loc[3])
+    for item in problems:
+        loc = item.loc
+        at = loc[1] if len(loc) >= 3 and loc[0] == "samples" else None
+        if isinstance(at, int) and at < len(preview.rows):
+            key = str(loc[2])
+            number = preview.rows[at]["row"]
             column = headers.get(key, key)
             out.append(
-                problem(
-                    _cell_loc(number, column),
-                    f"row {number}, column '{column}': {item['msg']}",
-                    item.get("type", "value_error"),
-                )
+                cell_problem(number, column, item.value, item.reason, item.accepted, item.kind)
             )
         else:
             out.append(item)
@@ -491,8 +450,7 @@ def check_schedule(
     received_at: Any = None,
     delivered_by: str = "",
 ) -> SchedulePreview:
-    """Everything `save_schedule` would refuse, without storing anything: the batch is received
-    inside a savepoint that is always rolled back."""
+    """Everything `save_schedule` would refuse, without storing anything."""
     preview = read_schedule(table)
     if preview.errors:
         return preview
@@ -500,18 +458,10 @@ def check_schedule(
     try:
         batch = _batch(preview, received_at, delivered_by)
     except ValidationError as exc:
-        preview.errors.extend(
-            problem(["body", *e["loc"]], f"{'.'.join(map(str, e['loc']))}: {e['msg']}", e["type"])
-            for e in exc.errors()
-        )
+        preview.errors.extend(problems_from_validation(exc.errors()))
         return preview
-    savepoint = session.begin_nested()
-    try:
-        receive_samples(session, project_id, batch, actor=actor)
-    except InvalidInput as exc:
-        preview.errors.extend(_reception_problems(exc, preview, headers))
-    finally:
-        savepoint.rollback()
+    problems = check_samples(session, project_id, batch, actor=actor)
+    preview.errors.extend(_reception_problems(problems, preview, headers))
     return preview
 
 
@@ -530,7 +480,7 @@ def save_schedule(
     )
     if preview.errors:
         raise InvalidInput(
-            f"{len(preview.errors)} problem(s) in the schedule", detail=preview.errors
+            f"{len(preview.errors)} problem(s) in the schedule", problems=preview.errors
         )
     return receive_samples(
         session, project_id, _batch(preview, received_at, delivered_by), actor=actor

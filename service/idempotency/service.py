@@ -13,7 +13,7 @@ from typing import Any
 
 from sqlmodel import Session
 
-from service.errors import Conflict, InvalidInput
+from service.errors import Conflict, invalid
 from service.idempotency.models import IdempotencyRecord
 
 HEADER = "Idempotency-Key"
@@ -23,16 +23,13 @@ _KEY = re.compile(r"^[A-Za-z0-9._:\-]{1,64}$")
 def check_key(key: str | None) -> str:
     """The key as sent, or a 422 naming the header and what it accepts."""
     if key is None or not _KEY.match(key):
-        raise InvalidInput(
-            f"{HEADER}: a client-generated key is required",
-            detail=[
-                {
-                    "loc": ["header", HEADER],
-                    "msg": f"{HEADER} header: got {key!r}; accepted: 1 to 64 letters, digits "
-                    "or . _ : - (a UUID is a good choice)",
-                    "type": "value_error",
-                }
-            ],
+        raise invalid(
+            ("header", HEADER),
+            "a client-generated key is required" if key is None else "is not a usable key",
+            value=key,
+            accepted="1 to 64 letters, digits or . _ : - (a UUID is a good choice)",
+            kind="missing" if key is None else "value_error",
+            label=f"{HEADER} header",
         )
     return key
 

@@ -87,7 +87,6 @@ class PermeabilityTest(SQLModel, table=True):
 class TestApparatus(SQLModel, table=True):
     """Which register items a test used (permeameter, balance, thermometer, timer ...)."""
 
-    __test__ = False
     __tablename__ = "test_apparatus"
 
     test_id: int = Field(foreign_key="permeability_test.id", primary_key=True)

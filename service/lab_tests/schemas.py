@@ -1,17 +1,32 @@
-"""Request and response schemas of the test lifecycle (requests, specimen, trials, sign-offs)."""
+"""Request and response schemas of the test lifecycle (requests, specimen, trials, sign-offs).
+
+The models that carry a test's entries (a trial, a reading, the specimen, the conditions,
+and every section of the stateless reduction request) are built from the method catalogue:
+one field per entry, described with its label, unit and example. A new catalogue entry
+appears in them, and in the OpenAPI documentation, without a change here.
+"""
 
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field, create_model, field_validator
 
 from service.common import Preparation, TestMethod
+from service.lab_tests.reduction import Check, Entry, Scope, catalogue
 
 REFERENCE_TEMPERATURES_C = (10.0, 20.0, 27.0)
-Standard = Literal["ASTM D5084", "ASTM D2434", "ASTM D5856", "ISO 17892-11"]
+if TYPE_CHECKING:
+    StandardId = str
+    MethodId = str
+    PermeameterId = str
+else:
+    StandardId = Literal[catalogue.standard_ids()]
+    MethodId = Literal[catalogue.method_ids()]
+    PermeameterId = Literal[catalogue.permeameter_ids()]
 Correction = Literal["iapws", "astm_d5084"]
+MAX_READINGS = 5000
 
 
 class _Strict(BaseModel):
@@ -35,12 +50,119 @@ Quantity = Annotated[
 ]
 
 
+def _described(entry: Entry) -> str:
+    unit = f" [{entry.units.si}]" if entry.units else ""
+    example = f", e.g. '{entry.example}'" if entry.example else ""
+    return f"{entry.label}{unit}{example}. {entry.help}".strip()
+
+
+def entry_field(entry: Entry, *, typed_only: bool = False) -> tuple[Any, Any]:
+    """A model field for one catalogue entry: its type and its description."""
+    examples = [entry.example] if entry.example else None
+    info = Field(None, title=entry.label, description=_described(entry), examples=examples)
+    if entry.is_flag:
+        return bool | None, info
+    if entry.choices:
+        return Literal[entry.choices] | None, info
+    if entry.is_text:
+        return Annotated[str, Field(max_length=100)] | None, info
+    return (Typed if typed_only else Quantity) | None, info
+
+
+def entries_model(
+    name: str,
+    entries: tuple[Entry, ...],
+    *,
+    doc: str,
+    typed_only: bool = False,
+    base: type[BaseModel] = _Strict,
+    **extra: Any,
+) -> type[BaseModel]:
+    """A request model with one optional field per entry (and the `extra` fields)."""
+    fields: dict[str, Any] = {e.id: entry_field(e, typed_only=typed_only) for e in entries}
+    fields.update(extra)
+    return create_model(name, __base__=base, __doc__=doc, **fields)
+
+
+def _all(scope: Scope) -> tuple[Entry, ...]:
+    return catalogue.entries(scope)
+
+
+if TYPE_CHECKING:  # the models below are built at run time; for mypy they take any field
+
+    class _Entries(_Strict):
+        def __init__(self, **data: Any) -> None: ...
+
+
+if TYPE_CHECKING:
+
+    class ReadingIn(_Entries): ...
+
+    class TrialEntries(_Entries): ...
+
+else:
+    ReadingIn = entries_model("ReadingIn", _all(Scope.READING), doc="One reading of a run.")
+    TrialEntries = entries_model(
+        "TrialEntries",
+        _all(Scope.TRIAL),
+        doc="One trial in the reduction contract's shape, stored exactly as sent.",
+        readings=(list[ReadingIn] | None, Field(None, max_length=MAX_READINGS)),
+    )
+
+
+if TYPE_CHECKING:
+
+    class OptionsIn(_Entries): ...
+
+    class SpecimenIn(_Entries): ...
+
+    class ApparatusIn(_Entries): ...
+
+    class SaturationIn(_Entries): ...
+
+    class SpecificationIn(_Entries): ...
+
+else:
+    OptionsIn = entries_model("OptionsIn", _all(Scope.OPTION), doc="How to reduce.")
+    SpecimenIn = entries_model(
+        "SpecimenIn",
+        tuple(e for e in _all(Scope.SPECIMEN) if e.si_field or e.replaces),
+        doc="The specimen as measured.",
+    )
+    ApparatusIn = entries_model(
+        "ApparatusIn", _all(Scope.APPARATUS), doc="The permeameter's geometry."
+    )
+    SaturationIn = entries_model(
+        "SaturationIn", _all(Scope.SATURATION), doc="One back-pressure step and its B-value."
+    )
+    SpecificationIn = entries_model(
+        "SpecificationIn", _all(Scope.SPECIFICATION), doc="The limit the result is held to."
+    )
+
+
+class ReductionRequest(_Strict):
+    """One test's entries in the reduction contract's shape (POST /api/v1/reductions)."""
+
+    method: MethodId
+    standard: StandardId | None = None
+    options: OptionsIn | None = None
+    specimen: SpecimenIn | None = None
+    apparatus: ApparatusIn | None = None
+    saturation: list[SaturationIn] | None = None
+    trials: list[TrialEntries]
+    specification: SpecificationIn | None = None
+    permeameter: PermeameterId | None = Field(
+        None, description="flexible_wall or rigid_wall; under ASTM D5084 the default is flexible"
+    )
+
+
 # --- Requests -------------------------------------------------------------------------
 
+_CONDITIONS = tuple(e for e in _all(Scope.TEST) if e.is_quantity and e.id not in ("spec_k_max",))
 
-class _TestFields(_Strict):
-    standard: Standard | None = None
-    target_dry_density: Typed | None = Field(None, description="e.g. '1.68 g/cm**3'")
+
+class _TestFieldsBase(_Strict):
+    standard: StandardId | None = None
     reference_temperature_c: float = Field(
         20.0, description="reference temperature of k_ref: 20 °C, or 10 or 27 °C"
     )
@@ -49,9 +171,6 @@ class _TestFields(_Strict):
         None, description="specification limit on k_ref, e.g. '1e-9 m/s'; default: the project's"
     )
     permeant: Annotated[str, Field(max_length=100)] | None = None
-    cell_pressure: Typed | None = Field(None, description="flexible wall: e.g. '550 kPa'")
-    back_pressure: Typed | None = Field(None, description="e.g. '515 kPa'")
-    effective_confining: Typed | None = Field(None, description="e.g. '35 kPa'")
     technician_id: int | None = None
     apparatus_ids: list[int] | None = Field(
         None, description="register items used: permeameter, balance, thermometer, timer ..."
@@ -66,69 +185,68 @@ class _TestFields(_Strict):
         return value
 
 
+if TYPE_CHECKING:
+
+    class _TestFields(_TestFieldsBase):
+        def __init__(self, **data: Any) -> None: ...
+
+else:
+    _TestFields = entries_model(
+        "_TestFields",
+        _CONDITIONS,
+        doc="A test's request and conditions.",
+        typed_only=True,
+        base=_TestFieldsBase,
+    )
+
+
 class TestCreate(_TestFields):
     """Request a permeability test on a sample."""
 
-    __test__ = False
     method: TestMethod
 
 
 class TestUpdate(_TestFields):
     """Change a test's request, conditions or assignment; `version` is the one you read."""
 
-    __test__ = False
     version: int = Field(ge=1)
     method: TestMethod | None = None
     reference_temperature_c: float = 20.0
 
 
-class SpecimenWrite(_Strict):
-    """Record or change the specimen; only the fields sent change (null clears one).
+# Specimen entries a form types with a unit (the specific gravity is a plain number).
+SPECIMEN_TYPED = tuple(
+    e for e in _all(Scope.SPECIMEN) if e.is_quantity and e.on_forms and not e.is_number
+)
 
-    `version` is required once the specimen exists."""
 
+class _SpecimenBase(_Strict):
     version: int | None = Field(None, ge=1)
     preparation: Preparation | None = None
-    diameter: Typed | None = None
-    length: Typed | None = None
-    wet_mass: Typed | None = None
-    water_content: Typed | None = Field(None, description="'22.4 %' or '0.224'")
     specific_gravity: float | None = Field(None, gt=1.0, le=5.0)
-    max_dry_density: Typed | None = None
-    d10: Typed | None = None
-    max_particle_size: Typed | None = None
-    retained_on_lower_sieve: Typed | None = Field(None, description="'40 %'")
     stiff_material: bool | None = None
-    final_diameter: Typed | None = Field(None, description="after consolidation")
-    final_length: Typed | None = Field(None, description="after consolidation")
     description: Annotated[str, Field(max_length=300)] | None = None
+
+
+if TYPE_CHECKING:
+
+    class SpecimenWrite(_SpecimenBase):
+        def __init__(self, **data: Any) -> None: ...
+
+else:
+    SpecimenWrite = entries_model(
+        "SpecimenWrite",
+        SPECIMEN_TYPED,
+        doc="Record or change the specimen; only the fields sent change (null clears one). "
+        "`version` is required once the specimen exists.",
+        typed_only=True,
+        base=_SpecimenBase,
+    )
 
 
 class SaturationStepCreate(_Strict):
     back_pressure: Typed = Field(description="e.g. '345 kPa'")
     b_value: float = Field(ge=0.0, le=1.1, description="Skempton's B after this step")
-
-
-class ReadingIn(_Strict):
-    time: Quantity | None = None
-    head: Quantity | None = None
-
-
-class TrialEntries(_Strict):
-    """One trial in the reduction contract's shape, stored exactly as sent."""
-
-    volume: Quantity | None = None
-    water_mass: Quantity | None = None
-    duration: Quantity | None = None
-    head_difference: Quantity | None = None
-    pressure_difference: Quantity | None = None
-    inflow_volume: Quantity | None = None
-    outflow_volume: Quantity | None = None
-    head_initial: Quantity | None = None
-    head_final: Quantity | None = None
-    flow_rate: Quantity | None = None
-    temperature: Quantity | None = None
-    readings: list[ReadingIn] | None = Field(None, max_length=5000)
 
 
 class TrialCreate(TrialEntries):
@@ -255,7 +373,6 @@ class ApparatusRef(BaseModel):
 
 
 class TestSummary(BaseModel):
-    __test__ = False
     id: int
     sample_id: int
     series: int
@@ -306,9 +423,16 @@ class TestRead(TestSummary):
 
 
 class ProblemRead(BaseModel):
+    """One refused or missing entry: its path, its name in words, what was sent, what is
+    accepted."""
+
     loc: list[str | int]
     msg: str
     type: str
+    field: str = ""
+    label: str = ""
+    value: Any = None
+    accepted: str = ""
 
 
 class TrialOutput(BaseModel):
@@ -325,22 +449,13 @@ class TrialOutput(BaseModel):
     u_rel: float | None
 
 
-class CheckRead(BaseModel):
-    id: str
-    status: str
-    measured: float | None
-    limit: float | None
-    message: str
-    source: str
-
-
 class LiveReduction(BaseModel):
     """The test's reduction as it stands; `pending` names what is still missing for one."""
 
     engine_version: str
     trials: list[TrialOutput]
     result: dict[str, Any] | None
-    checks: list[CheckRead]
+    checks: list[Check]
     pending: list[ProblemRead]
 
 

@@ -1,79 +1,22 @@
-"""Project and location rules: who may create them, unique numbers, typed limits, versions.
-
-Also the two small helpers the reception features share: a typed quantity kept as typed
-beside its SI float, and the optimistic-concurrency check that answers 409 with both versions."""
+"""Project and location rules: who may create them, unique numbers, typed limits, versions."""
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
-from sqlmodel import Session, SQLModel, col, select
+from sqlmodel import Session, col, func, select
 
 from service.access import get_visible, is_client, scope_projects
 from service.accounts.models import Organisation, User
 from service.audit.service import apply_changes, record_created
-from service.common import LocationKind, OrganisationKind
-from service.engine.errors import EngineInputError, Loc, field_name
-from service.engine.units import CONDUCTIVITY, LENGTH, Kind, parse_quantity
-from service.errors import Conflict, InvalidInput, NotFound, StaleVersion
+from service.common import LocationKind, OrganisationKind, Role
+from service.errors import Conflict, NotFound, invalid, require_version
+from service.paging import paginate
 from service.projects.models import Location, Project
-from service.queue import paginate
+from service.quantities import CONDUCTIVITY, LENGTH, typed
+from service.samples.models import Sample
 from service.text import Identifier
-
-# --- shared helpers ------------------------------------------------------------------------
-
-
-def problems_from(exc: EngineInputError, prefix: Loc = ("body",)) -> list[dict[str, Any]]:
-    """The engine's refusals as FastAPI-style 422 entries: loc, msg (field, value, accepted)."""
-    return [
-        {"loc": [*prefix, *problem.loc], "msg": problem.msg, "type": problem.kind}
-        for problem in exc.problems
-    ]
-
-
-def invalid(loc: Sequence[str | int], msg: str, kind: str = "value_error") -> InvalidInput:
-    """A 422 naming one field."""
-    return InvalidInput(msg, detail=[{"loc": list(loc), "msg": msg, "type": kind}])
-
-
-def typed_quantity(
-    text: str, kind: Kind, loc: Loc, *, positive: bool = False, non_negative: bool = False
-) -> tuple[str, float]:
-    """Parse what was typed (``"1.50 m"``, ``"5 ft"``) into (the text as typed, SI float).
-
-    `loc` is the field's full location, e.g. ``("samples", 3, "depth_top")``; refusals are
-    InvalidInput with `("body", *loc)`. Offset units (degC) are not expected here."""
-    typed = text.strip()
-    try:
-        value, _ = parse_quantity(typed, kind, loc, positive=positive)
-    except EngineInputError as exc:
-        raise InvalidInput(str(exc), detail=problems_from(exc)) from None
-    if non_negative and value < 0:
-        accepted = f"a {kind.name} of zero or more with its unit, such as {kind.examples}"
-        raise invalid(
-            ("body", *loc),
-            f"{field_name(loc)}: must not be negative (got '{typed}'); accepted: {accepted}",
-            "negative",
-        )
-    return typed, value
-
-
-def require_version(row: SQLModel, expected: int, what: str, current: BaseModel) -> None:
-    """Refuse an edit made against an older version: 409 with both versions and the record."""
-    actual = int(getattr(row, "version", 0))
-    if actual != expected:
-        raise StaleVersion(
-            f"{what} changed since you read it: you sent version {expected}, it is now at "
-            f"version {actual}. Reload, check the other change, and try again.",
-            detail={
-                "your_version": expected,
-                "current_version": actual,
-                "current": current.model_dump(mode="json"),
-            },
-        )
-
 
 # --- schemas -------------------------------------------------------------------------------
 
@@ -164,10 +107,11 @@ def _client_organisation(session: Session, client_id: int) -> Organisation:
     organisation = session.get(Organisation, client_id)
     if organisation is None or organisation.kind != OrganisationKind.CLIENT:
         raise invalid(
-            ("body", "client_id"),
-            f"client_id: no client organisation has id {client_id}; "
-            "accepted: the id of a client organisation",
-            "unknown_client",
+            ("client_id",),
+            f"no client organisation has id {client_id}",
+            value=client_id,
+            accepted="the id of a client organisation",
+            kind="unknown_client",
         )
     return organisation
 
@@ -175,7 +119,7 @@ def _client_organisation(session: Session, client_id: int) -> Organisation:
 def _spec_limit(text: str | None) -> tuple[str, float | None]:
     if text is None or not text.strip():
         return "", None
-    return typed_quantity(text, CONDUCTIVITY, ("spec_k_max",), positive=True)
+    return typed(text, CONDUCTIVITY, ("spec_k_max",), positive=True)
 
 
 def _refuse_duplicate_number(
@@ -185,7 +129,9 @@ def _refuse_duplicate_number(
     if project_id is not None:
         query = query.where(Project.id != project_id)
     if session.exec(query).first() is not None:
-        raise Conflict(f"number: this client already has a project numbered '{number}'")
+        raise Conflict(
+            f"this client already has a project numbered '{number}'", detail={"field": "number"}
+        )
 
 
 def create_project(session: Session, data: ProjectCreate, *, actor: User) -> Project:
@@ -237,6 +183,31 @@ def list_projects(
     return paginate(session, query, limit=limit, offset=offset)
 
 
+PROJECT_MANAGERS = frozenset({Role.LAB_MANAGER, Role.ADMIN})
+
+
+def may_manage_projects(user: User) -> bool:
+    """Whether `user` opens projects and adds their locations."""
+    return user.role in PROJECT_MANAGERS
+
+
+def projects_with_sample_counts(session: Session, *, user: User) -> list[tuple[Project, int]]:
+    """Every project the user may see, by number, with how many samples it has."""
+    query: Any = (
+        select(Project, func.count(col(Sample.id)))
+        .join(Sample, col(Sample.project_id) == Project.id, isouter=True)
+        .group_by(col(Project.id))
+        .order_by(col(Project.number))
+    )
+    return [(project, int(count)) for project, count in session.exec(scope_projects(query, user))]
+
+
+def location_names(session: Session, project_id: int) -> dict[int, str]:
+    """The names of a project's locations, by id."""
+    rows = session.exec(select(Location).where(Location.project_id == project_id)).all()
+    return {loc.id: loc.name for loc in rows if loc.id is not None}
+
+
 def get_project(session: Session, project_id: int, *, user: User) -> Project:
     return get_visible(session, Project, project_id, user, "project")
 
@@ -247,7 +218,11 @@ def update_project(
     """Edit a project against the version the editor read; each changed field is audited."""
     project = get_project(session, project_id, user=actor)
     require_version(
-        project, data.version, f"project {project_id}", ProjectRead.model_validate(project)
+        project,
+        data.version,
+        f"project {project_id}",
+        yours=data.model_dump(mode="json", exclude_unset=True, exclude={"version"}),
+        current=ProjectRead.model_validate(project).model_dump(mode="json"),
     )
     typed = data.model_dump(exclude_unset=True, exclude={"version", "spec_k_max"})
     # An explicit null means "leave as is" for these fields; none of them may be emptied.
@@ -272,12 +247,15 @@ def add_location(
     project = get_project(session, project_id, user=actor)
     ground_text, ground_m = "", None
     if data.ground_level:
-        ground_text, ground_m = typed_quantity(data.ground_level, LENGTH, ("ground_level",))
+        ground_text, ground_m = typed(data.ground_level, LENGTH, ("ground_level",))
     duplicate = session.exec(
         select(Location.id).where(Location.project_id == project.id, Location.name == data.name)
     ).first()
     if duplicate is not None:
-        raise Conflict(f"name: project {project.number} already has a location '{data.name}'")
+        raise Conflict(
+            f"project {project.number} already has a location '{data.name}'",
+            detail={"field": "name"},
+        )
     assert project.id is not None
     location = Location(
         project_id=project.id,

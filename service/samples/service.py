@@ -17,16 +17,17 @@ from service.accounts.models import User
 from service.audit import chain
 from service.audit.service import apply_changes, record_created
 from service.certificates.models import Certificate, CertificateTest
-from service.common import CertificateState, CustodyKind, Priority, SampleType
+from service.common import CertificateState, CustodyKind, Priority, Role, SampleType
 from service.custody.service import record_custody, refuse_if_disposed
 from service.db import utcnow
-from service.engine.units import LENGTH
-from service.errors import InvalidInput
+from service.errors import FieldProblem, InvalidInput, NotFound, invalid, require_version
 from service.idempotency import service as idempotency
 from service.lab_tests.models import PermeabilityTest
+from service.paging import Page, paginate
 from service.projects.models import Location, Project
-from service.projects.service import get_project, invalid, require_version, typed_quantity
-from service.queue import OPEN_STATES, Page, paginate
+from service.projects.service import get_location, get_project
+from service.quantities import LENGTH, typed
+from service.queue import OPEN_STATES
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
 from service.text import Identifier
@@ -142,7 +143,7 @@ def _resolve_location(
     row: SampleIn | SampleUpdate,
     locations: list[Location],
     loc: tuple[str | int, ...],
-    problems: list[dict[str, Any]],
+    problems: list[FieldProblem],
 ) -> int | None:
     by_id = {location.id: location for location in locations}
     by_name = {location.name.casefold(): location for location in locations}
@@ -152,10 +153,11 @@ def _resolve_location(
         chosen = by_id.get(row.location_id)
         if chosen is None:
             problems.append(
-                _problem(
+                FieldProblem(
                     (*loc, "location_id"),
-                    f"no location {row.location_id} in this project; accepted: the id of one "
-                    f"of its locations ({names})",
+                    f"no location {row.location_id} in this project",
+                    row.location_id,
+                    f"the id of one of its locations ({names})",
                     "unknown_location",
                 )
             )
@@ -165,18 +167,22 @@ def _resolve_location(
         named = by_name.get(name.casefold())
         if named is None:
             problems.append(
-                _problem(
+                FieldProblem(
                     (*loc, "location"),
-                    f"no location named '{name}' in this project; accepted: {names}",
+                    f"no location named '{name}' in this project",
+                    name,
+                    names,
                     "unknown_location",
                 )
             )
             return None
         if chosen is not None and chosen.id != named.id:
             problems.append(
-                _problem(
+                FieldProblem(
                     (*loc, "location"),
-                    f"'{name}' is not location {row.location_id}; give one or the other",
+                    f"'{name}' is not location {row.location_id}",
+                    name,
+                    "a location name or a location id, not two different ones",
                     "location_mismatch",
                 )
             )
@@ -185,31 +191,28 @@ def _resolve_location(
     return chosen.id if chosen else None
 
 
-def _problem(loc: tuple[str | int, ...], msg: str, kind: str) -> dict[str, Any]:
-    return {"loc": ["body", *loc], "msg": msg, "type": kind}
-
-
 def _depths(
     top_text: str | None,
     bottom_text: str | None,
     loc: tuple[str | int, ...],
-    problems: list[dict[str, Any]],
+    problems: list[FieldProblem],
 ) -> tuple[tuple[str, float] | None, tuple[str, float] | None]:
     parsed: dict[str, tuple[str, float] | None] = {}
     for name, text in (("depth_top", top_text), ("depth_bottom", bottom_text)):
         parsed[name] = None
         if text:
             try:
-                parsed[name] = typed_quantity(text, LENGTH, (*loc, name), non_negative=True)
+                parsed[name] = typed(text, LENGTH, (*loc, name), non_negative=True)
             except InvalidInput as exc:
-                problems.extend(exc.detail)
+                problems.extend(exc.problems)
     top, bottom = parsed["depth_top"], parsed["depth_bottom"]
     if top and bottom and bottom[1] < top[1]:
         problems.append(
-            _problem(
+            FieldProblem(
                 (*loc, "depth_bottom"),
-                f"depth_bottom '{bottom[0]}' is above depth_top '{top[0]}'; "
-                "accepted: a depth at or below the top",
+                f"is above the top depth ({top[0]})",
+                bottom[0],
+                "a depth at or below the top",
                 "depth_order",
             )
         )
@@ -221,10 +224,11 @@ def _received_time(batch: SampleBatch) -> datetime:
     received = batch.received_at or now
     if received > now + CLOCK_SLACK:
         raise invalid(
-            ("body", "received_at"),
-            f"received_at: {received.isoformat()} is in the future; "
-            "accepted: the time the samples arrived, not later than now",
-            "future_time",
+            ("received_at",),
+            "is in the future",
+            value=received.isoformat(),
+            accepted="the time the samples arrived, not later than now",
+            kind="future_time",
         )
     return received
 
@@ -240,7 +244,7 @@ def receive_samples(
     assert actor.id is not None
     received = _received_time(batch)
     locations = _locations_of(session, project.id)
-    problems: list[dict[str, Any]] = []
+    problems: list[FieldProblem] = []
     prepared: list[tuple[SampleIn, int | None, Any, Any]] = []
     seen_ids: dict[str, int] = {}
     for index, row in enumerate(batch.samples):
@@ -251,17 +255,18 @@ def receive_samples(
             key = row.client_sample_id.casefold()
             if key in seen_ids:
                 problems.append(
-                    _problem(
+                    FieldProblem(
                         (*loc, "client_sample_id"),
-                        f"'{row.client_sample_id}' is also row {seen_ids[key]} of this batch; "
-                        "accepted: each client sample ID once per batch",
+                        "appears more than once in this batch",
+                        row.client_sample_id,
+                        "each client sample ID once per batch",
                         "duplicate",
                     )
                 )
             seen_ids.setdefault(key, index)
         prepared.append((row, location_id, top, bottom))
     if problems:
-        raise InvalidInput(f"{len(problems)} problem(s) in the batch", detail=problems)
+        raise InvalidInput(f"{len(problems)} problem(s) in the batch", problems=problems)
 
     _serialise_receptions(session)
     lab_ids = next_lab_ids(session, len(prepared), when=received)
@@ -317,6 +322,21 @@ def receive_samples(
                 when=received,
             )
     return samples
+
+
+def check_samples(
+    session: Session, project_id: int, batch: SampleBatch, *, actor: User
+) -> list[FieldProblem]:
+    """Everything `receive_samples` would refuse in `batch`, storing nothing: the batch is
+    received inside a savepoint that is always rolled back."""
+    savepoint = session.begin_nested()
+    try:
+        receive_samples(session, project_id, batch, actor=actor)
+    except InvalidInput as exc:
+        return list(exc.problems)
+    finally:
+        savepoint.rollback()
+    return []
 
 
 def _serialise_receptions(session: Session) -> None:
@@ -380,6 +400,20 @@ def _scoped(query: Any, user: User) -> Any:
     return query
 
 
+RECEIVERS = frozenset({Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
+
+
+def may_receive(user: User) -> bool:
+    """Whether `user` receives samples at reception."""
+    return user.role in RECEIVERS
+
+
+def samples_of_project(session: Session, project_id: int) -> list[Sample]:
+    """Every sample of a project, by lab ID."""
+    query = select(Sample).where(Sample.project_id == project_id).order_by(col(Sample.lab_id))
+    return list(session.exec(query).all())
+
+
 def list_samples(
     session: Session,
     *,
@@ -392,7 +426,14 @@ def list_samples(
     limit: int,
     offset: int,
 ) -> tuple[list[Sample], int]:
-    """Samples the user may see, newest lab ID first."""
+    """Samples the user may see, newest lab ID first. A client naming another organisation,
+    or a project or location it may not see, is answered 404 like any record it may not see."""
+    if is_client(user) and client_id is not None and client_id != user.organisation_id:
+        raise NotFound(f"organisation {client_id} not found")
+    if project_id is not None:
+        get_project(session, project_id, user=user)
+    if location_id is not None:
+        get_location(session, location_id, user=user)
     query = _scoped(select(Sample), user)
     if client_id is not None:
         if not is_client(user):
@@ -421,8 +462,10 @@ def lookup_samples(
     if not typed:
         raise invalid(
             ("query", "code"),
-            "code: nothing to look up; accepted: a lab ID such as '26-0417' or a client sample ID",
-            "missing",
+            "nothing to look up",
+            value=code,
+            accepted="a lab ID such as '26-0417' or a client sample ID",
+            kind="missing",
         )
     variants = sorted({typed, typed.upper(), typed.lower()})
     # Exact spellings first (they use the indexes); a mixed-case client ID falls back to a
@@ -445,11 +488,15 @@ def update_sample(session: Session, sample_id: int, data: SampleUpdate, *, actor
     """Correct a sample's record against the version the editor read; every field audited."""
     sample = get_sample(session, sample_id, user=actor)
     require_version(
-        sample, data.version, f"sample {sample.lab_id}", SampleRead.model_validate(sample)
+        sample,
+        data.version,
+        f"sample {sample.lab_id}",
+        yours=data.model_dump(mode="json", exclude_unset=True, exclude={"version"}),
+        current=SampleRead.model_validate(sample).model_dump(mode="json"),
     )
     refuse_if_disposed(sample)
     fields = data.model_fields_set - {"version"}
-    problems: list[dict[str, Any]] = []
+    problems: list[FieldProblem] = []
     changes: dict[str, Any] = {}
     if "location_id" in fields:
         if data.location_id is None:
@@ -465,7 +512,7 @@ def update_sample(session: Session, sample_id: int, data: SampleUpdate, *, actor
         changes["depth_top_text"], changes["depth_top_m"] = top or ("", None)
         changes["depth_bottom_text"], changes["depth_bottom_m"] = bottom or ("", None)
     if problems:
-        raise InvalidInput(f"{len(problems)} problem(s) in the sample", detail=problems)
+        raise InvalidInput(f"{len(problems)} problem(s) in the sample", problems=problems)
     for name in (
         "client_sample_id",
         "sample_type",

@@ -25,6 +25,7 @@ from service.errors import (
 )
 from service.web.htmx import htmx_details, redirect, render
 from service.web.pages import layout_context
+from service.web.refusals import form_errors, simple_name
 
 router = APIRouter(prefix="/account", include_in_schema=False)
 
@@ -54,12 +55,8 @@ def _error(msg: str, kind: str = "value_error") -> dict[str, str]:
 
 
 def field_errors(exc: InvalidInput) -> dict[str, dict[str, str]]:
-    """{field name: error} from an InvalidInput's FastAPI-shaped detail list."""
-    errors: dict[str, dict[str, str]] = {}
-    for item in exc.detail if isinstance(exc.detail, list) else []:
-        loc = [str(part) for part in item.get("loc", []) if part != "body"]
-        if loc:
-            errors[loc[-1]] = _error(str(item.get("msg", "")))
+    """{field name: error} of a refused form."""
+    errors, _ = form_errors(exc.problems, simple_name(PASSWORD_FIELDS))
     return errors
 
 
@@ -95,6 +92,27 @@ def settings_page(request: Request, auth: SignedIn, session: SessionDep) -> Resp
 # ---------- display units ----------
 
 
+def _units_refusal(
+    session: Session, user: User, units: str, version: str
+) -> tuple[dict[str, str] | None, int]:
+    """Save the units, or say why not: (the message beside the choice, the status)."""
+    accepted = ", ".join(f"{value} ({label.split(' (')[0]})" for value, label in UNIT_CHOICES)
+    if units not in {u.value for u in DisplayUnits}:
+        return _error(f"units: {units!r} is not offered; accepted: {accepted}"), 422
+    if not version.isdigit():
+        return _error(f"version: {version!r} is not a version number; reload the page"), 422
+    try:
+        changes = {"display_units": units}
+        accounts.update_user(session, user, actor=user, version=int(version), changes=changes)
+    except StaleVersion as exc:
+        return _error(
+            f"Your account changed elsewhere (this page had version {version}, it is now at "
+            f"version {exc.current.get('version', user.version)}, with units "
+            f"{user.display_units!r}). Choose again and save."
+        ), 409
+    return None, 200
+
+
 @router.post("/units")
 def save_units(
     request: Request,
@@ -105,34 +123,7 @@ def save_units(
 ) -> Response:
     """Save the user's display units (versioned: a change made elsewhere answers 409)."""
     user, current = auth
-    accepted = ", ".join(f"{value} ({label.split(' (')[0]})" for value, label in UNIT_CHOICES)
-    problem: dict[str, str] | None = None
-    status = 200
-    message = ""
-    if units not in {u.value for u in DisplayUnits}:
-        problem, status = _error(f"units: {units!r} is not offered; accepted: {accepted}"), 422
-    elif not version.isdigit():
-        problem = _error(f"version: {version!r} is not a version number; reload the page")
-        status = 422
-    else:
-        try:
-            accounts.update_user(
-                session,
-                user,
-                actor=user,
-                version=int(version),
-                changes={"display_units": units},
-            )
-        except StaleVersion as exc:
-            detail = exc.detail if isinstance(exc.detail, dict) else {}
-            problem = _error(
-                f"Your account changed elsewhere (this page had version {version}, it is now at "
-                f"version {detail.get('current_version', user.version)}, with units "
-                f"{user.display_units!r}). Choose again and save."
-            )
-            status = 409
-        else:
-            message = SAVED["units"]
+    problem, status = _units_refusal(session, user, units, version)
     if status == 200 and not htmx_details(request).wants_fragment:
         return redirect(request, "/account?saved=units")
     context = _context(
@@ -143,7 +134,7 @@ def save_units(
         units_value=units if problem else user.display_units,
         units_version=user.version,
         units_error=problem,
-        units_message=message,
+        units_message=SAVED["units"] if status == 200 else "",
     )
     return render(
         request,
@@ -155,6 +146,32 @@ def save_units(
 
 
 # ---------- password ----------
+
+
+def _password_refusal(
+    session: Session, user: User, current: AccessToken, typed: dict[str, str]
+) -> tuple[dict[str, dict[str, str]], str, int]:
+    """Change the password, or say why not: (messages beside fields, alert, status)."""
+    errors = {name: _error("needed", "missing") for name in PASSWORD_FIELDS if not typed[name]}
+    if not errors and typed["new_password"] != typed["repeat_password"]:
+        errors["repeat_password"] = _error("does not match the new password typed above")
+    if errors:
+        return errors, "", 422
+    try:
+        signin.change_password(
+            session,
+            user,
+            current_password=typed["current_password"],
+            new_password=typed["new_password"],
+            keep=current,
+        )
+    except PermissionDenied:
+        return {"current_password": _error("this is not your current password")}, "", 403
+    except TooManyAttempts as exc:
+        return {}, exc.message[:1].upper() + exc.message[1:] + ".", 429
+    except InvalidInput as exc:
+        return field_errors(exc) or {"new_password": _error(exc.message)}, "", 422
+    return {}, "", 200
 
 
 @router.post("/password")
@@ -170,38 +187,12 @@ def change_password(
     written back into the page: a refused form returns with its fields empty and the
     message beside the field it concerns."""
     user, current = auth
-    errors: dict[str, dict[str, str]] = {}
-    alert = ""
-    status = 422
     typed = {
         "current_password": current_password,
         "new_password": new_password,
         "repeat_password": repeat_password,
     }
-    for name in PASSWORD_FIELDS:
-        if not typed[name]:
-            errors[name] = _error("needed", "missing")
-    if not errors and new_password != repeat_password:
-        errors["repeat_password"] = _error("does not match the new password typed above")
-    if not errors:
-        try:
-            signin.change_password(
-                session,
-                user,
-                current_password=current_password,
-                new_password=new_password,
-                keep=current,
-            )
-        except PermissionDenied:
-            errors["current_password"] = _error("this is not your current password")
-            status = 403
-        except TooManyAttempts as exc:
-            alert = exc.message[:1].upper() + exc.message[1:] + "."
-            status = 429
-        except InvalidInput as exc:
-            errors = field_errors(exc) or {"new_password": _error(exc.message)}
-        else:
-            status = 200
+    errors, alert, status = _password_refusal(session, user, current, typed)
     if status == 200 and not htmx_details(request).wants_fragment:
         return redirect(request, "/account?saved=password")
     context = _context(

@@ -11,7 +11,6 @@ from urllib.parse import urlencode
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
-from pydantic import ValidationError
 from sqlmodel import Session
 
 from service.accounts.models import User
@@ -23,19 +22,20 @@ from service.apparatus.service import (
     get_apparatus,
     is_overdue,
     list_apparatus,
+    may_edit_register,
     update_apparatus,
 )
-from service.common import ApparatusKind, Role
+from service.common import ApparatusKind
 from service.db import utcnow
 from service.deps import SessionDep
-from service.errors import InvalidInput, PermissionDenied, ServiceError, StaleVersion
+from service.errors import PermissionDenied
 from service.web.htmx import htmx_details, redirect, render
 from service.web.pages import layout_context
 from service.web.queue import StaffUser
+from service.web.refusals import Attempt, attempt, simple_name
 
 router = APIRouter(prefix="/apparatus", include_in_schema=False)
 
-EDITORS = frozenset({Role.LAB_MANAGER, Role.ADMIN})
 PAGE_SIZE = 50
 KIND_WORDS = {
     ApparatusKind.RIGID_WALL_PERMEAMETER: "Rigid-wall permeameter",
@@ -88,7 +88,7 @@ class ItemForm:
 
 
 def _require_editor(user: User) -> None:
-    if user.role not in EDITORS:
+    if not may_edit_register(user):
         raise PermissionDenied("the apparatus register is edited by lab managers and admins")
 
 
@@ -149,15 +149,7 @@ def register(
     """The register by identifier, with calibration due dates; htmx gets the list alone."""
     today = utcnow().date()
     wanted = ApparatusKind(kind) if kind in {k.value for k in ApparatusKind} else None
-    rows, total = list_apparatus(
-        session,
-        kind=wanted,
-        overdue=True if show == "overdue" else None,
-        active=None if show == "all" else True,
-        on=today,
-        limit=PAGE_SIZE,
-        offset=(page - 1) * PAGE_SIZE,
-    )
+    rows, total = _listed(session, wanted, show, page, today)
     saved_item = session.get(Apparatus, saved) if saved else None
     context = layout_context(
         request,
@@ -170,7 +162,7 @@ def register(
         show=show if show in ("overdue", "all") else "",
         kinds=[(k.value, KIND_WORDS[k]) for k in ApparatusKind],
         kind_words={k.value: w for k, w in KIND_WORDS.items()},
-        can_edit=user.role in EDITORS,
+        can_edit=may_edit_register(user),
         saved_item=saved_item,
         today=today,
     )
@@ -179,6 +171,20 @@ def register(
         kept = {k: v for k, v in (("kind", context["kind"]), ("show", context["show"])) if v}
         response.headers["HX-Push-Url"] = "/apparatus" + (f"?{urlencode(kept)}" if kept else "")
     return response
+
+
+def _listed(
+    session: Session, kind: ApparatusKind | None, show: str, page: int, today: date
+) -> tuple[list[Apparatus], int]:
+    return list_apparatus(
+        session,
+        kind=kind,
+        overdue=True if show == "overdue" else None,
+        active=None if show == "all" else True,
+        on=today,
+        limit=PAGE_SIZE,
+        offset=(page - 1) * PAGE_SIZE,
+    )
 
 
 def _due_soon(item: Apparatus, today: date) -> bool:
@@ -231,30 +237,18 @@ def _dates(form: ItemForm) -> dict[str, date | None]:
     return out
 
 
-def _take_validation(form: ItemForm, exc: ValidationError) -> None:
-    for problem in exc.errors():
-        loc = [str(p) for p in problem["loc"]]
-        name = loc[0] if loc else "form"
-        text = str(problem["msg"]).removeprefix("Value error, ")
-        if name not in LABELS:
-            name = "calibration_due" if "calibration" in text else "form"
-        label = LABELS.get(name, "Entry")
-        form.errors.setdefault(name, {"msg": f"{label}: {text}", "kind": problem["type"]})
-
-
-def _take_service_error(form: ItemForm, exc: ServiceError) -> None:
-    before = set(form.errors)
-    if isinstance(exc, InvalidInput) and isinstance(exc.detail, list):
-        for problem in exc.detail:
-            loc = [str(p) for p in problem.get("loc", []) if p != "body"]
-            name = loc[0] if loc else "form"
-            form.errors.setdefault(name, {"msg": problem.get("msg", ""), "kind": "invalid"})
-    elif exc.message.startswith("identifier:"):
-        form.errors["identifier"] = {"msg": exc.message, "kind": "conflict"}
-    if isinstance(exc, StaleVersion) and isinstance(exc.detail, dict):
-        form.stale = exc.detail
-    if set(form.errors) == before:  # nothing to put beside a field: say it at the top
-        form.message = exc.message
+def _take_refusal(form: ItemForm, tried: Attempt) -> None:
+    """Put a refusal beside its fields, or atop the form; keep both versions of a stale edit."""
+    errors, general = tried.fields(simple_name(LABELS, {"calibrated_on": "calibration_due"}))
+    for name, error in errors.items():
+        form.errors.setdefault(name, {**error, "msg": f"{LABELS[name]}: {error['msg']}"})
+    if tried.stale is not None:
+        form.stale = tried.stale.detail
+    form.message = " ".join(general) or (
+        tried.message
+        if tried.stale is not None
+        else "Some entries need attention; each is marked beside its field."
+    )
 
 
 def _refused(
@@ -265,7 +259,6 @@ def _refused(
     item: Apparatus | None,
     status: int,
 ) -> Response:
-    session.rollback()  # nothing of a refused edit may be committed
     if not form.message:
         form.message = "Some entries need attention; each is marked beside its field."
     if item is not None and item.id is not None:
@@ -281,7 +274,7 @@ async def create(request: Request, session: SessionDep, user: StaffUser) -> Resp
     dates = _dates(form)
     if form.errors:
         return _refused(request, session, user, form, None, 422)
-    try:
+    with attempt(session) as tried:
         data = ApparatusCreate(
             identifier=form.value("identifier"),
             kind=form.value("kind"),
@@ -290,14 +283,10 @@ async def create(request: Request, session: SessionDep, user: StaffUser) -> Resp
             **dates,
             is_active=bool(form.value("is_active")),
         )
-    except ValidationError as exc:
-        _take_validation(form, exc)
-        return _refused(request, session, user, form, None, 422)
-    try:
         item = create_apparatus(session, data, actor=user)
-    except ServiceError as exc:
-        _take_service_error(form, exc)
-        return _refused(request, session, user, form, None, exc.status_code)
+    if tried.refused:
+        _take_refusal(form, tried)
+        return _refused(request, session, user, form, None, tried.status)
     return redirect(request, f"/apparatus?saved={item.id}")
 
 
@@ -316,7 +305,7 @@ async def update(
         form.errors["form"] = {"msg": "Version: reload the page and try again.", "kind": "missing"}
     if form.errors:
         return _refused(request, session, user, form, item, 422)
-    try:
+    with attempt(session) as tried:
         data = ApparatusUpdate(
             version=int(version),
             identifier=form.value("identifier"),
@@ -325,12 +314,8 @@ async def update(
             **dates,
             is_active=bool(form.value("is_active")),
         )
-    except ValidationError as exc:
-        _take_validation(form, exc)
-        return _refused(request, session, user, form, item, 422)
-    try:
         update_apparatus(session, apparatus_id, data, actor=user)
-    except ServiceError as exc:
-        _take_service_error(form, exc)
-        return _refused(request, session, user, form, item, exc.status_code)
+    if tried.refused:
+        _take_refusal(form, tried)
+        return _refused(request, session, user, form, item, tried.status)
     return redirect(request, f"/apparatus?saved={apparatus_id}")

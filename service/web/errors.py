@@ -9,20 +9,24 @@ the real status. A 401 on a page sends the browser to the sign-in page with `nex
 from __future__ import annotations
 
 import inspect
-from collections.abc import Awaitable, Callable
+from collections.abc import Awaitable, Callable, Sequence
 from typing import Any
 from urllib.parse import quote, urlsplit
 
 from fastapi import FastAPI, Request
-from fastapi.exception_handlers import (
-    http_exception_handler,
-    request_validation_exception_handler,
-)
+from fastapi.exception_handlers import http_exception_handler
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse, Response
+from fastapi.responses import Response
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from service.errors import InvalidInput, NotAuthenticated, ServiceError
+from service.errors import (
+    FieldProblem,
+    InvalidInput,
+    NotAuthenticated,
+    ServiceError,
+    problems_from_validation,
+)
+from service.lab_tests.reduction import accepted_of, label
 from service.web.htmx import htmx_details, redirect, render, safe_next
 
 API_PREFIX = "/api/"
@@ -87,15 +91,9 @@ def error_response(
     )
 
 
-def _problems_of(detail: Any) -> list[dict[str, Any]]:
-    if not isinstance(detail, list):
-        return []
-    problems = []
-    for item in detail:
-        if isinstance(item, dict):
-            loc = [str(part) for part in item.get("loc", []) if part != "body"]
-            problems.append({"field": ".".join(loc) or "request", "msg": item.get("msg", "")})
-    return problems
+def _listed(problems: Sequence[FieldProblem]) -> list[dict[str, str]]:
+    """Refused fields as the error page lists them: the field in words, then why."""
+    return [{"field": p.name, "msg": p.reason} for p in problems]
 
 
 def page_service_error(request: Request, exc: ServiceError) -> Response:
@@ -104,35 +102,46 @@ def page_service_error(request: Request, exc: ServiceError) -> Response:
         if htmx_details(request).is_htmx:
             response.status_code = 401
         return response
-    problems = _problems_of(exc.detail) if isinstance(exc, InvalidInput) else []
-    context = None if problems else exc.detail
+    problems = _listed(exc.problems) if isinstance(exc, InvalidInput) else []
+    context = None if problems else (exc.detail or None)
     return error_response(request, exc.status_code, exc.message, problems=problems, context=context)
 
 
-async def _fallback_json(_request: Request, exc: ServiceError) -> Response:
-    return JSONResponse({"error": exc.code, "detail": exc.message}, status_code=exc.status_code)
+def _previous(app: FastAPI, exc_type: type[Exception]) -> Handler:
+    handler = app.exception_handlers.get(exc_type)
+    if handler is None:
+        raise LookupError(f"install the JSON API's handler for {exc_type.__name__} first")
+    return handler
+
+
+async def _call(handler: Handler, request: Request, exc: Exception) -> Response:
+    answer = handler(request, exc)
+    return await answer if inspect.isawaitable(answer) else answer
 
 
 def install_web_error_handling(app: FastAPI) -> None:
-    """Answer page paths with HTML errors; keep the existing JSON answers for /api/.
+    """Answer page paths with HTML errors; keep the JSON API's answers for /api/.
 
-    Call after the app's own `ServiceError` handler is added. Safe to call twice.
+    Call after the JSON API's handlers are added (it wraps them). Safe to call twice.
     """
     if getattr(app.state, "web_errors_installed", False):
         return
     app.state.web_errors_installed = True
-    json_service_error: Handler = app.exception_handlers.get(ServiceError, _fallback_json)
+    json_service_error = _previous(app, ServiceError)
+    json_http_error = _previous(app, StarletteHTTPException)
+    json_validation_error = _previous(app, RequestValidationError)
 
     async def service_error(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, ServiceError)
         if is_api_path(request):
-            answer = json_service_error(request, exc)
-            return await answer if inspect.isawaitable(answer) else answer
+            return await _call(json_service_error, request, exc)
         return page_service_error(request, exc)
 
     async def http_error(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, StarletteHTTPException)
-        if is_api_path(request) or exc.status_code < 400:
+        if is_api_path(request):
+            return await _call(json_http_error, request, exc)
+        if exc.status_code < 400:
             return await http_exception_handler(request, exc)
         message = str(exc.detail) or "The request was refused."
         if exc.status_code == 404:
@@ -142,8 +151,8 @@ def install_web_error_handling(app: FastAPI) -> None:
     async def validation_error(request: Request, exc: Exception) -> Response:
         assert isinstance(exc, RequestValidationError)
         if is_api_path(request):
-            return await request_validation_exception_handler(request, exc)
-        problems = _problems_of(list(exc.errors()))
+            return await _call(json_validation_error, request, exc)
+        problems = _listed(problems_from_validation(exc.errors(), label, accepted_of))
         return error_response(
             request, 422, "Some entries were missing or not accepted.", problems=problems
         )

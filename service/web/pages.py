@@ -2,21 +2,18 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from typing import Annotated, Any
 
-import sqlalchemy as sa
 from fastapi import APIRouter, Form, Query, Request
 from fastapi.responses import Response
 from itsdangerous import BadSignature
-from sqlmodel import Session, col, func, select
+from sqlmodel import Session
 
-from service.access import scope_projects
 from service.accounts import signin
 from service.accounts.models import AccessToken, User
 from service.accounts.service import revoke_token
 from service.accounts.tokens import find_live_token
-from service.common import Role, TestState, TokenKind
+from service.common import Role, TokenKind
 from service.deps import (
     SESSION_COOKIE,
     Authentication,
@@ -29,9 +26,9 @@ from service.deps import (
     set_session_cookie,
 )
 from service.errors import NotAuthenticated, TooManyAttempts
-from service.lab_tests.models import PermeabilityTest
-from service.projects.models import Project
-from service.samples.models import Sample
+from service.lab_tests import service as lab_tests
+from service.projects.service import projects_with_sample_counts
+from service.samples.service import lookup_samples
 from service.web.htmx import redirect, render, safe_next
 
 router = APIRouter(include_in_schema=False)
@@ -69,7 +66,6 @@ FLASHES: dict[str, tuple[str, str]] = {
     "signed-in": ("ok", "You are signed in."),
 }
 
-ACTIVE_STATES = (TestState.PLANNED, TestState.RUNNING)
 SEARCH_LIMIT = 50
 
 
@@ -114,8 +110,14 @@ def _sign_in_page(
     )
 
 
+def _refusal(exc: NotAuthenticated | TooManyAttempts) -> str:
+    if isinstance(exc, NotAuthenticated):
+        return "That email address and password do not match an active account."
+    return _wait_message(exc)
+
+
 def _wait_message(exc: TooManyAttempts) -> str:
-    wait = exc.detail.get("retry_after_seconds") if isinstance(exc.detail, dict) else None
+    wait = exc.detail.get("retry_after_seconds")
     if wait is None:
         return "Too many failed sign-ins. Wait a few minutes, then try again."
     return f"Too many failed sign-ins. Wait {wait} seconds, then try again."
@@ -173,66 +175,12 @@ def sign_out(request: Request, auth: Authentication, session: SessionDep) -> Res
     if auth is not None:
         user, token = auth
         revoke_token(session, token, actor=user)
-        session.commit()  # before the redirect is sent, as in sign_in
     response = redirect(request, "/sign-in?flash=signed-out")
     response.delete_cookie(SESSION_COOKIE, httponly=True, samesite="lax")
     return response
 
 
 # ---------- home ----------
-
-
-def _my_tests(session: Session, user: User) -> Sequence[Any]:
-    query = (
-        select(PermeabilityTest, Sample)
-        .join(Sample, col(Sample.id) == PermeabilityTest.sample_id)
-        .where(
-            PermeabilityTest.technician_id == user.id,
-            col(PermeabilityTest.state).in_([s.value for s in ACTIVE_STATES]),
-        )
-        .order_by(
-            col(PermeabilityTest.due_date).is_(None),
-            col(PermeabilityTest.due_date),
-            col(PermeabilityTest.id),
-        )
-    )
-    return session.exec(query).all()
-
-
-def _awaiting_review(session: Session, user: User) -> Sequence[Any]:
-    # Nobody reviews their own test, so those are left out of the reviewer's list.
-    query = (
-        select(PermeabilityTest, Sample)
-        .join(Sample, col(Sample.id) == PermeabilityTest.sample_id)
-        .where(
-            PermeabilityTest.state == TestState.SUBMITTED.value,
-            sa.or_(
-                col(PermeabilityTest.technician_id).is_(None),
-                col(PermeabilityTest.technician_id) != user.id,
-            ),
-        )
-        .order_by(col(PermeabilityTest.submitted_at), col(PermeabilityTest.id))
-    )
-    return session.exec(query).all()
-
-
-def _state_counts(session: Session) -> dict[str, int]:
-    rows = session.exec(
-        select(PermeabilityTest.state, func.count()).group_by(PermeabilityTest.state)
-    ).all()
-    counts = {state.value: 0 for state in TestState}
-    counts.update({state: int(count) for state, count in rows})
-    return counts
-
-
-def _client_projects(session: Session, user: User) -> Sequence[Any]:
-    query: Any = (
-        select(Project, func.count(col(Sample.id)))
-        .join(Sample, col(Sample.project_id) == Project.id, isouter=True)
-        .group_by(col(Project.id))
-        .order_by(col(Project.number))
-    )
-    return session.exec(scope_projects(query, user)).all()
 
 
 @router.get("/")
@@ -242,35 +190,17 @@ def home(request: Request, user: OptionalUser, session: SessionDep) -> Response:
         return redirect(request, "/sign-in")
     context = layout_context(request, user)
     if user.role == Role.TECHNICIAN:
-        context["my_tests"] = _my_tests(session, user)
+        context["my_tests"] = lab_tests.assigned_tests(session, user)
     elif user.role == Role.CLIENT:
-        context["projects"] = _client_projects(session, user)
+        context["projects"] = projects_with_sample_counts(session, user=user)
     else:
-        context["counts"] = _state_counts(session)
-        if user.role in (Role.REVIEWER, Role.LAB_MANAGER):
-            context["awaiting_review"] = _awaiting_review(session, user)
+        context["counts"] = lab_tests.state_counts(session)
+        if lab_tests.may_review(user):
+            context["awaiting_review"] = lab_tests.awaiting_review(session, user)
     return render(request, "home/home.html", context)
 
 
 # ---------- search ----------
-
-
-def find_samples(session: Session, user: User, text: str) -> Sequence[Sample]:
-    """Samples whose lab ID or client's sample ID is `text` (any case), that `user` may see."""
-    wanted = text.strip().lower()
-    query = (
-        select(Sample)
-        .join(Project, col(Project.id) == Sample.project_id)
-        .where(
-            sa.or_(
-                func.lower(Sample.lab_id) == wanted,
-                func.lower(Sample.client_sample_id) == wanted,
-            )
-        )
-        .order_by(col(Sample.lab_id))
-        .limit(SEARCH_LIMIT)
-    )
-    return session.exec(scope_projects(query, user)).all()
 
 
 @router.get("/search")
@@ -285,7 +215,9 @@ def search(
     A GET, not a POST: a search changes nothing and its URL can be bookmarked or shared.
     """
     text = q.strip()
-    samples = find_samples(session, user, text) if text else []
+    samples = (
+        lookup_samples(session, text, user=user, limit=SEARCH_LIMIT, offset=0)[0] if text else []
+    )
     exact = [s for s in samples if s.lab_id.lower() == text.lower()]
     if len(exact) == 1 or len(samples) == 1:
         sample = exact[0] if exact else samples[0]

@@ -18,21 +18,28 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import Response
-from sqlmodel import Session, col, func, select
+from sqlmodel import Session
 
-from service.access import get_visible, scope_projects
+from service.access import get_visible
 from service.accounts.models import User
 from service.certificates.document import CAUTIONS, compliance_of
-from service.certificates.models import Certificate, CertificateTest
-from service.certificates.service import list_certificates
-from service.common import CertificateState, Role, TestState
+from service.certificates.models import Certificate
+from service.certificates.service import (
+    current_certificates,
+    list_certificates,
+    tests_per_certificate,
+)
+from service.common import Role, TestState
 from service.deps import SessionDep, require_roles
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.plots import k_depth_svg
-from service.projects.models import Location, Project
+from service.projects.models import Project
+from service.projects.service import location_names, projects_with_sample_counts
 from service.samples.models import Sample
+from service.samples.service import samples_of_project
 from service.web.htmx import render
 from service.web.pages import layout_context
+from service.web.plots import k_depth_svg
 
 router = APIRouter(prefix="/portal", include_in_schema=False)
 
@@ -112,16 +119,6 @@ class Plot:
 # ---------- what the client may see ----------
 
 
-def client_projects(session: Session, user: User) -> Sequence[Any]:
-    query: Any = (
-        select(Project, func.count(col(Sample.id)))
-        .join(Sample, col(Sample.project_id) == Project.id, isouter=True)
-        .group_by(col(Project.id))
-        .order_by(col(Project.number))
-    )
-    return session.exec(scope_projects(query, user)).all()
-
-
 def _reported(series: list[PermeabilityTest]) -> ReportedResult | None:
     """The figures of a series: its latest approved or issued revision, if any."""
     by_revision = sorted(series, key=lambda t: t.revision)
@@ -146,19 +143,15 @@ def _reported(series: list[PermeabilityTest]) -> ReportedResult | None:
 
 def sample_rows(session: Session, project: Project) -> list[SampleRow]:
     """Every sample of the project with its status and the results a client may see."""
-    locations = {
-        loc.id: loc.name
-        for loc in session.exec(select(Location).where(Location.project_id == project.id)).all()
-    }
-    samples = session.exec(select(Sample).where(Sample.project_id == project.id)).all()
+    assert project.id is not None
+    locations = location_names(session, project.id)
+    samples = samples_of_project(session, project.id)
     sample_ids = [s.id for s in samples if s.id is not None]
-    tests = session.exec(
-        select(PermeabilityTest).where(col(PermeabilityTest.sample_id).in_(sample_ids))
-    ).all()
+    tests = lab_tests.tests_of_samples(session, sample_ids)
     series: dict[int, dict[int, list[PermeabilityTest]]] = {}
     for test in tests:
         series.setdefault(test.sample_id, {}).setdefault(test.series, []).append(test)
-    current = _current_certificates(session, sample_ids)
+    current = current_certificates(session, sample_ids)
     rows = []
     for sample in samples:
         assert sample.id is not None
@@ -186,32 +179,6 @@ def sample_rows(session: Session, project: Project) -> list[SampleRow]:
         )
     )
     return rows
-
-
-def _current_certificates(session: Session, sample_ids: list[int]) -> dict[int, Certificate]:
-    """Each sample's certificate in force (state issued), without loading the PDF bytes."""
-    if not sample_ids:
-        return {}
-    found = session.exec(
-        select(Certificate).where(
-            col(Certificate.sample_id).in_(sample_ids),
-            Certificate.state == CertificateState.ISSUED,
-        )
-    ).all()
-    return {c.sample_id: c for c in found if c.sample_id is not None}
-
-
-def certificate_tests(session: Session, certificates: Sequence[Certificate]) -> dict[int, int]:
-    """How many tests each certificate reports."""
-    ids = [c.id for c in certificates if c.id is not None]
-    if not ids:
-        return {}
-    rows = session.exec(
-        select(CertificateTest.certificate_id, func.count())
-        .where(col(CertificateTest.certificate_id).in_(ids))
-        .group_by(col(CertificateTest.certificate_id))
-    ).all()
-    return {certificate_id: int(count) for certificate_id, count in rows}
 
 
 def depth_plot(rows: Sequence[SampleRow], spec_limit: float | None) -> Plot | None:
@@ -252,8 +219,42 @@ def status_counts(rows: Sequence[SampleRow]) -> dict[str, int]:
 @router.get("")
 def portal_home(request: Request, user: Client, session: SessionDep) -> Response:
     """The client's projects, each linked to its portal page."""
-    context = layout_context(request, user, projects=client_projects(session, user))
+    projects = projects_with_sample_counts(session, user=user)
+    context = layout_context(request, user, projects=projects)
     return render(request, "portal/index.html", context)
+
+
+def _certificates(session: Session, user: User, project_id: int) -> dict[str, Any]:
+    """The project's certificates for the downloads table, with how many tests each reports."""
+    certificates, _ = list_certificates(session, user=user, project_id=project_id)
+    return {
+        "certificates": certificates,
+        "certificates_by_id": {c.id: c for c in certificates},
+        "certificate_tests": tests_per_certificate(
+            session, [c.id for c in certificates if c.id is not None]
+        ),
+    }
+
+
+def _filtered(rows: list[SampleRow], status: str, location: str) -> list[SampleRow]:
+    return [
+        row
+        for row in rows
+        if (not status or row.status.key == status) and (not location or row.location == location)
+    ]
+
+
+def _filter_problems(status: str, location: str, locations: list[str]) -> list[str]:
+    """Why a filter of the sample table is refused, naming what is accepted."""
+    problems = []
+    if status and status not in STATUS_FILTERS:
+        problems.append(
+            f"status: {status!r} is not a status here; accepted: {', '.join(STATUS_FILTERS)}"
+        )
+    if location and location not in locations:
+        accepted = ", ".join(locations) or "none (no samples yet)"
+        problems.append(f"location: {location!r} is not in this project; accepted: {accepted}")
+    return problems
 
 
 @router.get("/projects/{project_id}")
@@ -272,21 +273,8 @@ def project_page(
     project = get_visible(session, Project, project_id, user, "project")
     rows = sample_rows(session, project)
     locations = sorted({row.location for row in rows})
-    problems = []
-    if status and status not in STATUS_FILTERS:
-        problems.append(
-            f"status: {status!r} is not a status here; accepted: {', '.join(STATUS_FILTERS)}"
-        )
-    if location and location not in locations:
-        accepted = ", ".join(locations) or "none (no samples yet)"
-        problems.append(f"location: {location!r} is not in this project; accepted: {accepted}")
-    shown = [
-        row
-        for row in rows
-        if (not status or problems or row.status.key == status)
-        and (not location or problems or row.location == location)
-    ]
-    certificates = list_certificates(session, user=user, project_id=project_id)
+    problems = _filter_problems(status, location, locations)
+    shown = rows if problems else _filtered(rows, status, location)
     context = layout_context(
         request,
         user,
@@ -299,10 +287,8 @@ def project_page(
         location_filter=location,
         filter_problems=problems,
         plot=depth_plot(rows, project.spec_k_max_m_per_s),
-        certificates=certificates,
-        certificates_by_id={c.id: c for c in certificates},
-        certificate_tests=certificate_tests(session, certificates),
         cautions=CAUTIONS[1:3],
+        **_certificates(session, user, project_id),
     )
     return render(
         request,

@@ -9,15 +9,14 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
-from pydantic import ValidationError
-from sqlmodel import Session, col, select
+from sqlmodel import Session
 
 from service.access import is_client
 from service.accounts.models import Organisation, User
 from service.accounts.service import list_organisations
-from service.common import LocationKind, OrganisationKind, Role, TestState
+from service.common import LocationKind, OrganisationKind, TestState
 from service.deps import CurrentUser, LabStaff, Manager, SessionDep
-from service.errors import Conflict, InvalidInput
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.projects.service import (
     LocationCreate,
@@ -27,18 +26,18 @@ from service.projects.service import (
     get_project,
     list_locations,
     list_projects,
+    may_manage_projects,
 )
-from service.samples.service import list_samples
+from service.samples.service import list_samples, may_receive
 from service.web.htmx import redirect, render
 from service.web.pages import layout_context
-from service.web.reception import field_errors, pydantic_problems, simple_name, with_unit
+from service.web.reception import with_unit
+from service.web.refusals import attempt, simple_name
 
 router = APIRouter(prefix="/projects", include_in_schema=False)
 
 PAGE_SIZE = 100
 SAMPLE_LIMIT = 500
-MANAGERS = frozenset({Role.LAB_MANAGER, Role.ADMIN})
-RECEIVERS = frozenset({Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
 CLIENT_RESULT_STATES = frozenset({TestState.ISSUED.value, TestState.SUPERSEDED.value})
 PROJECT_FIELDS = ("client_id", "number", "name", "site", "turnaround_days", "spec_k_max")
 LOCATION_FIELDS = (
@@ -87,7 +86,7 @@ def list_context(
         total=total,
         search=search,
         client_names={int(key): name for key, name in choices},
-        can_create=user.role in MANAGERS,
+        can_create=may_manage_projects(user),
         client_choices=choices,
         project_form=_project_form(form),
         project_errors=errors or {},
@@ -114,24 +113,18 @@ async def project_create(request: Request, user: Manager, session: SessionDep) -
     posted = await request.form()
     values = {name: str(posted.get(name, "")) for name in PROJECT_FIELDS}
     payload: dict[str, Any] = {k: v.strip() for k, v in values.items() if v.strip()}
-    errors: dict[str, Any] = {}
-    general: list[str] = []
-    status = 422
-    name_of = simple_name(PROJECT_FIELDS)
-    try:
+    with attempt(session) as tried:
         project = create_project(session, ProjectCreate.model_validate(payload), actor=user)
-    except ValidationError as exc:
-        errors, general = field_errors(pydantic_problems(exc), name_of)
-    except InvalidInput as exc:
-        errors, general = field_errors(exc.detail or [], name_of)
-    except Conflict as exc:
-        status = 409
-        errors = {"number": {"msg": exc.message.split(": ", 1)[-1], "kind": "duplicate"}}
-    else:
+    if not tried.refused:
         return redirect(request, f"/projects/{project.id}")
+    errors, general = tried.fields(simple_name(PROJECT_FIELDS))
     context = list_context(request, session, user, form=values, errors=errors, general=general)
     return render(
-        request, "projects/list.html", context, fragment="projects/_create.html", status_code=status
+        request,
+        "projects/list.html",
+        context,
+        fragment="projects/_create.html",
+        status_code=tried.status,
     )
 
 
@@ -144,19 +137,6 @@ def _location_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
     form["ground_level_unit"] = "m"
     form.update({k: v for k, v in (values or {}).items() if k in LOCATION_FIELDS})
     return form
-
-
-def _tests_by_sample(session: Session, sample_ids: list[int]) -> dict[int, list[PermeabilityTest]]:
-    out: dict[int, list[PermeabilityTest]] = {sample_id: [] for sample_id in sample_ids}
-    if sample_ids:
-        rows = session.exec(
-            select(PermeabilityTest)
-            .where(col(PermeabilityTest.sample_id).in_(sample_ids))
-            .order_by(col(PermeabilityTest.series), col(PermeabilityTest.revision))
-        ).all()
-        for test in rows:
-            out[test.sample_id].append(test)
-    return out
 
 
 def _latest_k(tests: list[PermeabilityTest], client: bool) -> PermeabilityTest | None:
@@ -189,7 +169,9 @@ def project_context(
         session, user=user, project_id=project.id, limit=SAMPLE_LIMIT, offset=0
     )
     samples = sorted(samples, key=lambda s: s.lab_id)
-    tests = _tests_by_sample(session, [s.id for s in samples if s.id is not None])
+    tests: dict[int, list[PermeabilityTest]] = {}
+    for test in lab_tests.tests_of_samples(session, [s.id for s in samples if s.id is not None]):
+        tests.setdefault(test.sample_id, []).append(test)
     rows = [
         {
             "sample": sample,
@@ -209,8 +191,8 @@ def project_context(
         rows=rows,
         sample_total=sample_total,
         client_view=client_view,
-        can_receive=user.role in RECEIVERS,
-        can_add_location=user.role in MANAGERS,
+        can_receive=may_receive(user),
+        can_add_location=may_manage_projects(user),
         location_kinds=LOCATION_KINDS,
         level_units=LEVEL_UNITS,
         location_form=_location_form(location_form),
@@ -245,20 +227,10 @@ async def location_create(
     level = with_unit(values["ground_level"], values["ground_level_unit"] or "m")
     if level is not None:
         payload["ground_level"] = level
-    errors: dict[str, Any] = {}
-    general: list[str] = []
-    status = 422
-    name_of = simple_name(LOCATION_FIELDS)
-    try:
+    with attempt(session) as tried:
         add_location(session, project_id, LocationCreate.model_validate(payload), actor=user)
-    except ValidationError as exc:
-        errors, general = field_errors(pydantic_problems(exc), name_of)
-    except InvalidInput as exc:
-        errors, general = field_errors(exc.detail or [], name_of)
-    except Conflict as exc:
-        status = 409
-        errors = {"name": {"msg": exc.message.split(": ", 1)[-1], "kind": "duplicate"}}
-    refused = bool(errors or general)
+    errors, general = tried.fields(simple_name(LOCATION_FIELDS))
+    refused = tried.refused
     context = project_context(
         request,
         session,
@@ -274,5 +246,5 @@ async def location_create(
         "projects/project.html",
         context,
         fragment="projects/_locations.html",
-        status_code=status if refused else 200,
+        status_code=tried.status,
     )

@@ -3,37 +3,32 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from datetime import date
 from typing import Annotated, Any
 from urllib.parse import urlencode
 
-import sqlalchemy as sa
 from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import Response
-from sqlmodel import Session, col, select
+from sqlmodel import Session
 
-from service.accounts.models import Organisation, User
-from service.accounts.service import list_organisations, list_users
-from service.apparatus.models import Apparatus
-from service.apparatus.service import is_overdue, list_apparatus
-from service.common import ApparatusKind, OrganisationKind, Priority, Role, TestState
+from service.accounts.models import User
+from service.accounts.service import list_organisations, list_users, names_of
+from service.apparatus.service import identifiers_of, is_overdue, list_apparatus
+from service.common import ApparatusKind, OrganisationKind, Role, TestState
 from service.db import utcnow
 from service.deps import CurrentUser, SessionDep
-from service.errors import InvalidInput, NotFound, PermissionDenied, ServiceError, StaleVersion
-from service.lab_tests import service as lifecycle
+from service.errors import NotFound, PermissionDenied, ServiceError
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.reduction import catalogue
 from service.lab_tests.schemas import TestUpdate
+from service.paging import Page
 from service.projects.models import Project
 from service.projects.service import list_projects
 from service.queue import (
-    OPEN_STATES,
-    Page,
     QueueFilters,
     QueueTest,
-    _due_date,
-    _filtered,
-    count_of,
     queue_counts,
     queue_tests,
     technician_load,
@@ -41,13 +36,12 @@ from service.queue import (
 from service.samples.models import Sample
 from service.web.htmx import htmx_details, redirect, render, safe_next
 from service.web.pages import layout_context
+from service.web.refusals import attempt
 
 router = APIRouter(include_in_schema=False)
 
 PAGE_SIZE = 25
 OPTION_LIMIT = 500
-QUEUE_ROLES = frozenset({Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN})
-ASSIGNERS = frozenset({Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN})
 STATE_ORDER = [s.value for s in TestState]
 SORTS = (
     ("due", "Due date"),
@@ -62,12 +56,7 @@ STATE_WORDS = {
     "issued": "Issued",
     "superseded": "Superseded",
 }
-METHOD_WORDS = {
-    "constant_head": "Constant head",
-    "falling_head": "Falling head",
-    "falling_head_rising_tail": "Falling head, rising tailwater",
-    "constant_rate": "Constant rate of flow",
-}
+METHOD_WORDS = {m.id: m.short_name for m in catalogue.METHODS}
 
 
 def lab_staff_page(user: CurrentUser) -> User:
@@ -171,79 +160,6 @@ def read_queue_query(params: dict[str, str]) -> QueueQuery:
     return query
 
 
-# ---------- a page of the queue in the chosen order ----------
-
-
-def _sorted_ids(
-    session: Session, filters: QueueFilters, sort: str, *, limit: int, offset: int
-) -> tuple[list[int], int]:
-    # service.queue sorts by due date only; priority and state orders are built on its
-    # filters here (see the report: a `sort` argument on queue_tests would replace this).
-    if not filters.states:
-        filters = replace(filters, states=OPEN_STATES)
-    base = _filtered(select(PermeabilityTest.id), filters, join_sample=True)
-    total = count_of(session, base)
-    if sort == "priority":
-        first: list[Any] = [sa.case((col(Sample.priority) == Priority.URGENT.value, 0), else_=1)]
-    else:
-        ranks = {state: rank for rank, state in enumerate(STATE_ORDER)}
-        first = [sa.case(ranks, value=col(PermeabilityTest.state), else_=len(ranks))]
-    ordered = base.order_by(*first, _due_date().is_(None), _due_date(), col(PermeabilityTest.id))
-    return list(session.exec(ordered.limit(limit).offset(offset)).all()), total
-
-
-def _queue_rows(session: Session, test_ids: list[int], today: date) -> list[QueueTest]:
-    if not test_ids:
-        return []
-    rows = session.exec(
-        select(PermeabilityTest, Sample, Project, Organisation)
-        .join(Sample, col(Sample.id) == col(PermeabilityTest.sample_id))
-        .join(Project, col(Project.id) == col(Sample.project_id))
-        .join(Organisation, col(Organisation.id) == col(Project.client_id))
-        .where(col(PermeabilityTest.id).in_(test_ids))
-    ).all()
-    technician_ids = {test.technician_id for test, *_ in rows if test.technician_id}
-    names = dict(
-        session.exec(select(User.id, User.full_name).where(col(User.id).in_(technician_ids))).all()
-        if technician_ids
-        else []
-    )
-    open_states = {s.value for s in OPEN_STATES}
-    by_id: dict[int, QueueTest] = {}
-    for test, sample, project, client in rows:
-        due_on = test.due_date or sample.due_date
-        assert test.id is not None
-        assert sample.id is not None
-        by_id[test.id] = QueueTest(
-            test_id=test.id,
-            state=test.state,
-            method=test.method,
-            sample_id=sample.id,
-            sample_lab_id=sample.lab_id,
-            client_sample_id=sample.client_sample_id,
-            client_id=client.id or 0,
-            client_name=client.name,
-            project_id=project.id or 0,
-            project_number=project.number,
-            technician_id=test.technician_id,
-            technician_name=names.get(test.technician_id),
-            due_date=due_on,
-            overdue=bool(due_on is not None and due_on < today and test.state in open_states),
-            priority=sample.priority,
-        )
-    return [by_id[test_id] for test_id in test_ids if test_id in by_id]
-
-
-def queue_page(
-    session: Session, filters: QueueFilters, sort: str, *, limit: int, offset: int
-) -> Page[QueueTest]:
-    if sort == "due":
-        return queue_tests(session, filters, limit=limit, offset=offset)
-    ids, total = _sorted_ids(session, filters, sort, limit=limit, offset=offset)
-    items = _queue_rows(session, ids, filters.today)
-    return Page[QueueTest](items=items, total=total, limit=limit, offset=offset)
-
-
 # ---------- choices for the selects ----------
 
 
@@ -284,8 +200,19 @@ def _num(project: Project) -> str:
 
 
 def _require_queue_role(user: User) -> None:
-    if user.role not in QUEUE_ROLES:
+    if not lab_tests.may_assign(user):
         raise PermissionDenied("the queue is for reviewers, lab managers and admins")
+
+
+def _page_of(session: Session, query: QueueQuery) -> Page[QueueTest]:
+    """The page asked for, or the last one when the filters leave fewer pages."""
+    offset = (query.page - 1) * PAGE_SIZE
+    page = queue_tests(session, query.filters, limit=PAGE_SIZE, offset=offset, sort=query.sort)
+    if page.total and offset >= page.total:
+        query.page = (page.total - 1) // PAGE_SIZE + 1
+        offset = (query.page - 1) * PAGE_SIZE
+        page = queue_tests(session, query.filters, limit=PAGE_SIZE, offset=offset, sort=query.sort)
+    return page
 
 
 @router.get("/queue")
@@ -300,14 +227,7 @@ def queue(
     _require_queue_role(user)
     query = read_queue_query(dict(request.query_params))
     filters = query.filters
-    limit = PAGE_SIZE
-    offset = (query.page - 1) * limit
-    page = queue_page(session, filters, query.sort, limit=limit, offset=offset)
-    if page.total and offset >= page.total:
-        query.page = (page.total - 1) // limit + 1
-        offset = (query.page - 1) * limit
-        page = queue_page(session, filters, query.sort, limit=limit, offset=offset)
-    pages = max(1, (page.total + limit - 1) // limit)
+    page = _page_of(session, query)
     notice = _assigned_notice(session, assigned) if assigned else None
     context = layout_context(
         request,
@@ -317,8 +237,8 @@ def queue(
         counts=queue_counts(session, filters),
         load=technician_load(session, filters),
         page=page,
-        pages=pages,
-        can_assign=user.role in ASSIGNERS,
+        pages=max(1, (page.total + PAGE_SIZE - 1) // PAGE_SIZE),
+        can_assign=lab_tests.may_assign(user),
         method_words=METHOD_WORDS,
         notice=notice,
         **_filter_choices(session, user),
@@ -343,7 +263,7 @@ def _assigned_notice(session: Session, test_id: int) -> str | None:
         return None
     sample = session.get(Sample, test.sample_id)
     technician = session.get(User, test.technician_id) if test.technician_id else None
-    apparatus = lifecycle.apparatus_of(session, test_id)
+    apparatus = lab_tests.apparatus_of(session, test_id)
     who = technician.full_name if technician else "nobody (not assigned)"
     what = ", ".join(a.identifier for a in apparatus) or "no apparatus"
     lab_id = sample.lab_id if sample else f"test {test_id}"
@@ -407,13 +327,13 @@ def _assign_context(
         stale=stale,
         technicians=[(str(t.id), t.full_name, load.get(t.id, 0)) for t in technicians(session)],
         apparatus=_apparatus_choices(session, today),
-        editable=test.state in lifecycle.EDITABLE,
+        editable=test.state in lab_tests.EDITABLE,
         method_words=METHOD_WORDS,
     )
 
 
 def _require_assigner(user: User) -> None:
-    if user.role not in ASSIGNERS:
+    if not lab_tests.may_assign(user):
         raise PermissionDenied("assigning tests is for lab managers, reviewers and admins")
 
 
@@ -427,8 +347,8 @@ def assign_form(
 ) -> Response:
     """The assignment form (a small page; htmx loads it into the queue beside the table)."""
     _require_assigner(user)
-    test = lifecycle.get_test(session, test_id, actor=user)
-    current = [str(a.id) for a in lifecycle.apparatus_of(session, test_id)]
+    test = lab_tests.get_test(session, test_id, actor=user)
+    current = [str(a.id) for a in lab_tests.apparatus_of(session, test_id)]
     form = AssignForm(
         technician_id=str(test.technician_id or ""),
         apparatus_ids=current,
@@ -451,23 +371,66 @@ def _int_or_error(
     return None
 
 
-def _error_field(loc: list[Any]) -> str:
-    parts = [str(p) for p in loc if p != "body"]
-    return parts[0] if parts else "form"
+def _stale_assignment(session: Session, test: PermeabilityTest, sent: TestUpdate) -> dict[str, Any]:
+    """Both sides of a stale assignment in words: the technician and apparatus chosen, and
+    those saved now."""
+    assert test.id is not None
+    current_ids = [a.id for a in lab_tests.apparatus_of(session, test.id) if a.id is not None]
+    chosen = sent.apparatus_ids or []
+    names = names_of(session, [sent.technician_id, test.technician_id])
+    labels = identifiers_of(session, [*chosen, *current_ids])
+
+    def side(version: int, person: int | None, items: list[int]) -> dict[str, Any]:
+        return {
+            "version": version,
+            "technician": names.get(person or 0, "not assigned"),
+            "apparatus": ", ".join(sorted(labels.get(i, str(i)) for i in items)) or "none",
+        }
+
+    return {
+        "yours": side(sent.version, sent.technician_id, chosen),
+        "current": side(test.version, test.technician_id, current_ids),
+    }
 
 
-def _person(session: Session, user_id: Any) -> str:
-    if not user_id:
-        return "not assigned"
-    person = session.get(User, int(user_id))
-    return person.full_name if person else f"user {user_id}"
+def _read_assignment(form: AssignForm) -> tuple[TestUpdate | None, dict[str, dict[str, str]]]:
+    """The assignment to send, or the form's own refusals (choices that are not numbers)."""
+    errors: dict[str, dict[str, str]] = {}
+    technician_id = _int_or_error(form.technician_id, "technician_id", "Technician", errors)
+    apparatus_ids = [
+        value
+        for raw in form.apparatus_ids
+        if (value := _int_or_error(raw, "apparatus_ids", "Apparatus", errors)) is not None
+    ]
+    version = _int_or_error(form.version, "version", "Version", errors)
+    if version is None and "version" not in errors:
+        errors["version"] = {"msg": "Version: reload the page and try again.", "kind": "missing"}
+    if errors or version is None:
+        return None, errors
+    return TestUpdate(
+        version=version, technician_id=technician_id, apparatus_ids=apparatus_ids
+    ), errors
 
 
-def _identifiers(session: Session, ids: list[Any]) -> str:
-    if not ids:
-        return "none"
-    rows = session.exec(select(Apparatus).where(col(Apparatus.id).in_([int(i) for i in ids])))
-    return ", ".join(sorted(a.identifier for a in rows.all())) or "none"
+def _assign_answer(
+    request: Request,
+    session: Session,
+    user: User,
+    test_id: int,
+    form: AssignForm,
+    *,
+    status_code: int,
+    **shown: Any,
+) -> Response:
+    test = lab_tests.get_test(session, test_id, actor=user)
+    context = _assign_context(request, session, user, test, form, **shown)
+    return render(
+        request,
+        "queue/assign.html",
+        context,
+        fragment="queue/_assign.html",
+        status_code=status_code,
+    )
 
 
 @router.post("/tests/{test_id}/assign")
@@ -482,62 +445,31 @@ async def assign(request: Request, session: SessionDep, user: StaffUser, test_id
         version=str(posted.get("version", "")),
         next_url=safe_next(str(posted.get("next", "/queue")), "/queue"),
     )
-    test = lifecycle.get_test(session, test_id, actor=user)
-    errors: dict[str, dict[str, str]] = {}
-    technician_id = _int_or_error(form.technician_id, "technician_id", "Technician", errors)
-    apparatus_ids = [
-        value
-        for raw in form.apparatus_ids
-        if (value := _int_or_error(raw, "apparatus_ids", "Apparatus", errors)) is not None
-    ]
-    version = _int_or_error(form.version, "version", "Version", errors)
-    if version is None and "version" not in errors:
-        errors["version"] = {"msg": "Version: reload the page and try again.", "kind": "missing"}
-    if errors:
-        context = _assign_context(
-            request, session, user, test, form, errors=errors, message="Check the marked entries."
+    lab_tests.get_test(session, test_id, actor=user)
+    data, errors = _read_assignment(form)
+    if data is None:
+        message = "Check the marked entries."
+        return _assign_answer(
+            request, session, user, test_id, form, status_code=422, errors=errors, message=message
         )
-        return render(
-            request, "queue/assign.html", context, fragment="queue/_assign.html", status_code=422
-        )
-    assert version is not None
-    data = TestUpdate(version=version, technician_id=technician_id, apparatus_ids=apparatus_ids)
-    try:
-        lifecycle.update_test(session, test_id, data, actor=user)
-    except ServiceError as exc:
-        session.rollback()  # nothing of a refused assignment may be committed
-        test = lifecycle.get_test(session, test_id, actor=user)
+    with attempt(session, catch=(ServiceError,)) as tried:
+        lab_tests.update_test(session, test_id, data, actor=user)
+    if tried.refused:
+        test = lab_tests.get_test(session, test_id, actor=user)
         stale = None
-        if isinstance(exc, StaleVersion):
-            current_ids = [a.id for a in lifecycle.apparatus_of(session, test_id)]
-            stale = {
-                "yours": {
-                    "version": version,
-                    "technician": _person(session, technician_id),
-                    "apparatus": _identifiers(session, apparatus_ids),
-                },
-                "current": {
-                    "version": test.version,
-                    "technician": _person(session, test.technician_id),
-                    "apparatus": _identifiers(session, current_ids),
-                },
-            }
-        if isinstance(exc, InvalidInput) and isinstance(exc.detail, list):
-            for problem in exc.detail:
-                errors.setdefault(
-                    _error_field(problem.get("loc", [])),
-                    {"msg": problem.get("msg", exc.message), "kind": problem.get("type", "")},
-                )
-        context = _assign_context(
-            request, session, user, test, form, errors=errors, message=exc.message, stale=stale
-        )
-        return render(
+        if tried.stale is not None:
+            stale = _stale_assignment(session, test, data)
+        errors, _ = tried.fields(lambda loc: str(loc[0]) if loc else None)
+        return _assign_answer(
             request,
-            "queue/assign.html",
-            context,
-            fragment="queue/_assign.html",
-            status_code=exc.status_code,
+            session,
+            user,
+            test_id,
+            form,
+            status_code=tried.status,
+            errors=errors,
+            message=tried.message,
+            stale=stale,
         )
-    target = form.next_url
-    joiner = "&" if "?" in target else "?"
-    return redirect(request, f"{target}{joiner}assigned={test_id}")
+    joiner = "&" if "?" in form.next_url else "?"
+    return redirect(request, f"{form.next_url}{joiner}assigned={test_id}")

@@ -2,15 +2,12 @@
 uploaded sample schedule (CSV or XLSX), checked in full before anything is stored.
 
 Every render of the form carries a fresh idempotency key in a hidden field; it stays with the
-form through checks and refusals, so a double-tapped or retried save stores the batch once.
-The small helpers that turn service refusals into messages beside fields are shared by the
-sample and project pages."""
+form through checks and refusals, so a double-tapped or retried save stores the batch once."""
 
 from __future__ import annotations
 
 import csv
 import io
-import re
 import uuid
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
@@ -26,14 +23,22 @@ from service.accounts.models import User
 from service.common import Priority, SampleType
 from service.config import get_settings
 from service.deps import Reception, SessionDep
-from service.errors import Conflict, InvalidInput
+from service.errors import Conflict, FieldProblem, InvalidInput, Loc
 from service.exchange.files import FileTooLarge, Table, read_table, read_upload
 from service.exchange.imports import SCHEDULE_COLUMNS, SchedulePreview, check_schedule
 from service.projects.models import Location, Project
 from service.projects.service import get_project, list_locations, list_projects
-from service.samples.service import SampleBatch, receive_samples, receive_samples_once
+from service.samples.service import SampleBatch, check_samples, receive_samples_once
 from service.web.htmx import render
 from service.web.pages import layout_context
+from service.web.refusals import (
+    NameOf,
+    attempt,
+    beside,
+    form_errors,
+    simple_name,
+    validation_refusal,
+)
 
 router = APIRouter(prefix="/reception", include_in_schema=False)
 
@@ -72,25 +77,11 @@ ROW_LABELS = {
     "storage_place": "Storage place",
     "priority": "Priority",
 }
-# Field names inside row messages, in the words on the form.
-_ROW_WORDS = {"depth_bottom": "bottom depth", "depth_top": "top depth"}
-# A service message opens with the field's path ("samples[0].depth_top: ..."): beside the
-# field the label already says which one it is.
-_PATH_PREFIX = re.compile(r"^[\w.\[\]]+: ")
-
-
-# --- shared helpers (also used by the sample and project pages) ------------------------------
 
 
 def new_key() -> str:
     """A fresh idempotency key for one rendering of a form."""
     return uuid.uuid4().hex
-
-
-def beside_field(msg: str) -> str:
-    """A service message shown next to its field: without the leading field path."""
-    text = _PATH_PREFIX.sub("", msg, count=1)
-    return text[:1].upper() + text[1:]
 
 
 def with_unit(typed: str, unit: str) -> str | None:
@@ -104,56 +95,6 @@ def with_unit(typed: str, unit: str) -> str | None:
     except ValueError:
         return text
     return f"{text} {unit}"
-
-
-def pydantic_problems(
-    exc: ValidationError, prefix: tuple[str | int, ...] = ()
-) -> list[dict[str, Any]]:
-    """A schema's refusals in the services' shape: loc, msg (value and what is accepted)."""
-    out = []
-    for error in exc.errors():
-        loc = [*prefix, *error["loc"]]
-        shown = error.get("input")
-        typed = f" (you typed '{shown}')" if isinstance(shown, str | int | float) else ""
-        out.append({"loc": loc, "msg": f"{error['msg']}{typed}", "type": error["type"]})
-    return out
-
-
-def field_errors(
-    detail: Iterable[Mapping[str, Any]], name_of: Any
-) -> tuple[dict[str, dict[str, str]], list[str]]:
-    """Refusals split into messages beside form fields and messages for the whole form.
-
-    `name_of(loc)` gives the form field a refusal's location belongs to, or None."""
-    beside: dict[str, dict[str, str]] = {}
-    general: list[str] = []
-    for item in detail:
-        loc = [part for part in item.get("loc", []) if part != "body"]
-        msg = str(item.get("msg", ""))
-        name = name_of(loc)
-        if name is None:
-            general.append(msg)
-            continue
-        entry = {"msg": beside_field(msg), "kind": str(item.get("type", ""))}
-        if name in beside:
-            beside[name]["msg"] += " " + entry["msg"]
-        else:
-            beside[name] = entry
-    return beside, general
-
-
-def simple_name(fields: Iterable[str], aliases: Mapping[str, str] | None = None) -> Any:
-    """A `name_of` for flat forms: the first part of the location if it is one of `fields`."""
-    known = set(fields)
-    renamed = dict(aliases or {})
-
-    def name_of(loc: list[Any]) -> str | None:
-        if not loc:
-            return None
-        first = renamed.get(str(loc[0]), str(loc[0]))
-        return first if first in known else None
-
-    return name_of
 
 
 # --- the reception form ----------------------------------------------------------------------
@@ -240,20 +181,11 @@ def batch_payload(form: ReceptionForm) -> tuple[dict[str, Any], list[int]]:
     return payload, indexes
 
 
-def row_message(msg: str) -> str:
-    """A row refusal with the field names the form shows ('bottom depth', not depth_bottom)."""
-    for name, words in _ROW_WORDS.items():
-        msg = msg.replace(name, words)
-    return msg
+def _row_name(indexes: list[int]) -> NameOf:
+    """The form field of a batch refusal: ("samples", i, field) is row indexes[i]."""
 
-
-def _row_problems(detail: Iterable[Mapping[str, Any]]) -> list[dict[str, Any]]:
-    return [{**item, "msg": row_message(str(item.get("msg", "")))} for item in detail]
-
-
-def _row_name(indexes: list[int]) -> Any:
-    def name_of(loc: list[Any]) -> str | None:
-        if loc[:1] == ["delivered_by"]:
+    def name_of(loc: Loc) -> str | None:
+        if loc[:1] == ("delivered_by",):
             return "delivered_by"
         if len(loc) >= 3 and loc[0] == "samples" and isinstance(loc[1], int):
             row = indexes[loc[1]] if loc[1] < len(indexes) else loc[1]
@@ -263,6 +195,25 @@ def _row_name(indexes: list[int]) -> Any:
         return None
 
     return name_of
+
+
+def _row_problems(problems: Iterable[FieldProblem], indexes: list[int]) -> list[FieldProblem]:
+    """Batch refusals named as the form shows them: "Row 3 · Depth, bottom"."""
+    out = []
+    for problem in problems:
+        loc = problem.loc
+        if len(loc) >= 3 and loc[0] == "samples" and isinstance(loc[1], int):
+            row = indexes[loc[1]] if loc[1] < len(indexes) else loc[1]
+            words = ROW_LABELS.get(str(loc[2]), str(loc[2]).replace("_", " "))
+            problem = problem.at(loc, f"Row {row + 1} · {words}")
+        out.append(problem)
+    return out
+
+
+def _rows_refused(outcome: Outcome, problems: Iterable[FieldProblem], indexes: list[int]) -> None:
+    errors, general = form_errors(_row_problems(problems, indexes), _row_name(indexes))
+    outcome.errors.update(errors)
+    outcome.general.extend(general)
 
 
 @dataclass(slots=True)
@@ -290,63 +241,53 @@ def _rows_batch(form: ReceptionForm, outcome: Outcome) -> tuple[SampleBatch | No
     try:
         return SampleBatch.model_validate(payload), indexes
     except ValidationError as exc:
-        errors, general = field_errors(_row_problems(pydantic_problems(exc)), _row_name(indexes))
-        outcome.errors.update(errors)
-        outcome.general.extend(general)
+        _rows_refused(outcome, validation_refusal(exc).problems, indexes)
         return None, indexes
 
 
 def check_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
-    """Everything the save would refuse, found by receiving the batch in a savepoint that is
-    always rolled back; stores nothing."""
+    """Everything the save would refuse; stores nothing."""
     outcome = Outcome(checked=True)
     batch, indexes = _rows_batch(form, outcome)
     if batch is None or form.project_id is None:
         return outcome
-    savepoint = session.begin_nested()
-    try:
-        receive_samples(session, form.project_id, batch, actor=user)
-    except InvalidInput as exc:
-        errors, general = field_errors(_row_problems(exc.detail or []), _row_name(indexes))
-        outcome.errors.update(errors)
-        outcome.general.extend(general)
-    finally:
-        savepoint.rollback()
+    _rows_refused(outcome, check_samples(session, form.project_id, batch, actor=user), indexes)
     return outcome
 
 
 def _save(
-    session: Session, form: ReceptionForm, batch: SampleBatch, user: User, outcome: Outcome
+    session: Session,
+    form: ReceptionForm,
+    batch: SampleBatch,
+    user: User,
+    outcome: Outcome,
+    indexes: list[int],
 ) -> None:
     assert form.project_id is not None
-    try:
+    with attempt(session) as tried:
         _status, answer, _replayed = receive_samples_once(
             session, form.project_id, batch, actor=user, idempotency_key=form.idempotency_key
         )
-    except Conflict as exc:
+    if not tried.refused:
+        outcome.received = answer
+    elif isinstance(tried.error, Conflict):
         # The key was spent on another batch (the form was saved, then changed): a new key
         # lets this batch through on the next tap, after the user has seen why.
         form.idempotency_key = new_key()
         outcome.conflict = True
         outcome.general.append(
-            f"This form was already used to receive a different batch ({exc.message}). "
+            f"This form was already used to receive a different batch ({tried.message}). "
             "Check the rows, then save again to receive them as a new batch."
         )
-        return
-    outcome.received = answer
+    else:
+        _rows_refused(outcome, tried.problems, indexes)
 
 
 def save_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
     outcome = Outcome(checked=True)
     batch, indexes = _rows_batch(form, outcome)
-    if batch is None:
-        return outcome
-    try:
-        _save(session, form, batch, user, outcome)
-    except InvalidInput as exc:
-        errors, general = field_errors(_row_problems(exc.detail or []), _row_name(indexes))
-        outcome.errors.update(errors)
-        outcome.general.extend(general)
+    if batch is not None:
+        _save(session, form, batch, user, outcome, indexes)
     return outcome
 
 
@@ -373,7 +314,7 @@ def _schedule_table(form: ReceptionForm, outcome: Outcome) -> Table | None:
     try:
         return read_table(form.schedule.encode("utf-8"), "schedule.csv", field="schedule")
     except InvalidInput as exc:
-        errors, general = field_errors(exc.detail or [], simple_name(["schedule"]))
+        errors, general = form_errors(exc.problems, simple_name(["schedule"]))
         outcome.errors.update(errors)
         outcome.general.extend(general)
         return None
@@ -403,10 +344,8 @@ def save_schedule(session: Session, form: ReceptionForm, user: User) -> Outcome:
     preview = _check_schedule(session, form, user, outcome)
     if preview is None or preview.errors:
         return outcome
-    try:
-        _save(session, form, schedule_batch(preview, form.delivered_by.strip()), user, outcome)
-    except InvalidInput as exc:
-        outcome.general.extend(str(item.get("msg", "")) for item in exc.detail or [])
+    batch = schedule_batch(preview, form.delivered_by.strip())
+    _save(session, form, batch, user, outcome, list(range(len(preview.rows))))
     return outcome
 
 
@@ -428,15 +367,11 @@ def preview_rows(table: Table, preview: SchedulePreview) -> tuple[list[PreviewRo
     by_cell: dict[tuple[int, str], list[str]] = {}
     general: list[str] = []
     for item in preview.errors:
-        loc = item.get("loc", [])
-        if len(loc) == 5 and loc[0] == "file" and loc[1] == "row" and loc[3] == "column":
-            if loc[2] == 1:
-                general.append(str(item["msg"]))
-            else:
-                msg = str(item["msg"]).split(": ", 1)[-1]
-                by_cell.setdefault((int(loc[2]), str(loc[4])), []).append(msg[:1].upper() + msg[1:])
+        loc = item.loc
+        if len(loc) == 5 and loc[:2] == ("file", "row") and loc[3] == "column" and loc[2] != 1:
+            by_cell.setdefault((int(loc[2]), str(loc[4])), []).append(beside(item))
         else:
-            general.append(str(item.get("msg", "")))
+            general.append(item.msg)
     rows = []
     for offset, cells in enumerate(table.rows):
         if not any(cell.strip() for cell in cells):
@@ -565,15 +500,15 @@ async def reception_submit(request: Request, user: Reception, session: SessionDe
                 )
                 form.schedule = table_as_csv(table)
             except (InvalidInput, FileTooLarge) as exc:
-                detail = exc.detail if isinstance(exc.detail, list) else []
-                file_error = "; ".join(str(i.get("msg", "")) for i in detail) or exc.message
+                problems = exc.problems if isinstance(exc, InvalidInput) else ()
+                file_error = "; ".join(beside(p) for p in problems) or exc.message
     if form.project_id is None:
         outcome = Outcome(general=["Choose the project the samples arrived for."])
         return _answer(request, _context(request, session, user, form), outcome)
     if form.entry == "schedule":
         outcome = Outcome(checked=True)
         if file_error:
-            outcome.errors["schedule_file"] = {"msg": beside_field(file_error), "kind": "file"}
+            outcome.errors["schedule_file"] = {"msg": file_error, "kind": "file"}
             return _answer(request, _context(request, session, user, form, outcome), outcome)
         if action == "save":
             outcome = save_schedule(session, form, user)

@@ -10,26 +10,27 @@ from typing import Any
 
 from fastapi import APIRouter, Request
 from fastapi.responses import Response
-from pydantic import ValidationError
-from sqlmodel import Session, col, select
+from sqlmodel import Session
 
 from service.accounts.models import Organisation, User
+from service.accounts.service import names_of
 from service.audit.service import history
-from service.certificates.models import Certificate
-from service.certificates.service import ISSUERS, issue_sample_certificate, list_certificates
+from service.certificates.service import issue_sample_certificate, list_certificates
 from service.common import TestState
 from service.deps import SessionDep
-from service.errors import InvalidInput, PermissionDenied, ServiceError, StaleVersion
-from service.lab_tests import service as lifecycle
+from service.errors import ServiceError
+from service.lab_tests import service as lab_tests
+from service.lab_tests.reduction import reduce_stored, trial_notes
 from service.lab_tests.schemas import CorrectionRequest, SendBackRequest, SignOffRequest
-from service.plots import k_per_trial_svg, ln_head_time_svg
 from service.projects.models import Project
 from service.samples.models import Sample
 from service.signoffs.service import performer_ids
-from service.web.bench import trial_notes
+from service.web.entries import trial_entries_text
 from service.web.htmx import redirect, render
 from service.web.pages import layout_context
+from service.web.plots import k_per_trial_svg, ln_head_time_svg
 from service.web.queue import METHOD_WORDS, StaffUser
+from service.web.refusals import Attempt, attempt
 
 router = APIRouter(include_in_schema=False)
 
@@ -42,19 +43,6 @@ DONE_NOTICES = {
     "sent-back": "Sent back to the technician with your reason; the test is running again.",
     "corrected": "Correction ordered: this is the new revision, running again for the "
     "technician. The approved or issued revision stays readable until it is approved.",
-}
-ENTRY_WORDS = {
-    "volume": "volume",
-    "water_mass": "water mass",
-    "duration": "duration",
-    "head_difference": "Δh",
-    "pressure_difference": "Δp",
-    "inflow_volume": "inflow",
-    "outflow_volume": "outflow",
-    "head_initial": "h₁",
-    "head_final": "h₂",
-    "flow_rate": "flow rate",
-    "temperature": "T",
 }
 # The unit each check's measured value and limit are in (the engine's checks carry bare
 # numbers; their messages name the unit). "%" values are fractions shown as per cent;
@@ -93,38 +81,11 @@ class ActionForms:
         return self.values.get(name, "") if form == self.which else ""
 
 
-def _typed(entry: Any) -> str:
-    if isinstance(entry, dict):
-        if "value" in entry:
-            text = f"{entry.get('value')} {entry.get('unit') or ''}".strip()
-            return text + (f" ± {entry['u']}" if entry.get("u") is not None else "")
-        return ""
-    return str(entry)
-
-
-def _entries_text(entries: dict[str, Any]) -> list[tuple[str, str]]:
-    return [
-        (ENTRY_WORDS.get(name, name.replace("_", " ")), _typed(value))
-        for name, value in entries.items()
-        if name != "readings" and value not in (None, "")
-    ]
-
-
-def _result_of(session: Session, test: Any, user: User) -> tuple[dict[str, Any] | None, bool]:
+def _result_of(session: Session, test: Any) -> tuple[dict[str, Any] | None, bool]:
     """(the reduction to review, whether it is the stored one from submission)."""
     if test.state in REDUCED_STATES and test.result:
         return test.result, True
-    live = lifecycle.live_reduction(session, test.id, actor=user)
-    if live.result is None:
-        return None, False
-    return {
-        "engine_version": live.engine_version,
-        "reference_temperature_c": test.reference_temperature_c,
-        "trials": [t.model_dump() for t in live.trials],
-        "result": live.result,
-        "checks": [c.model_dump() for c in live.checks],
-        "specimen": None,
-    }, False
+    return reduce_stored(session, test).result, False
 
 
 def _band_fraction(result: dict[str, Any]) -> float:
@@ -154,7 +115,7 @@ def _trial_rows(record: Any, result: dict[str, Any] | None) -> list[dict[str, An
                 "trial": trial,
                 "output": output,
                 "flags": flags,
-                "entries": _entries_text(trial.entries or {}),
+                "entries": trial_entries_text(trial.entries or {}),
                 "readings": len(record.readings.get(trial.id, [])),
             }
         )
@@ -185,14 +146,6 @@ def _plots(record: Any, result: dict[str, Any] | None, test: Any) -> dict[str, A
             )
             plots["ln_head"].append((trial.seq, svg))
     return plots
-
-
-def _names(session: Session, ids: set[int]) -> dict[int, str]:
-    ids = {i for i in ids if i}
-    if not ids:
-        return {}
-    rows = session.exec(select(User.id, User.full_name).where(col(User.id).in_(ids))).all()
-    return {user_id: name for user_id, name in rows if user_id is not None}
 
 
 def _short(value: str | None) -> str:
@@ -230,7 +183,7 @@ def audit_summary(events: list[Any], people: dict[int, str]) -> dict[str, Any]:
 def _why_not_approve(test: Any, user: User, performed: bool) -> str:
     if test.state != TestState.SUBMITTED:
         return ""
-    if user.role not in lifecycle.REVIEWERS:
+    if not lab_tests.may_review(user):
         return "Approving is for reviewers and lab managers; you can read this review."
     if performed:
         return (
@@ -247,25 +200,26 @@ def review_context(
     test_id: int,
     forms: ActionForms | None = None,
 ) -> dict[str, Any]:
-    record = lifecycle.load_record(session, test_id, actor=user)
+    record = lab_tests.load_record(session, test_id, actor=user)
     test = record.test
     sample = session.get(Sample, test.sample_id)
     assert sample is not None
     project = session.get(Project, sample.project_id)
     client = session.get(Organisation, project.client_id) if project else None
-    result, stored = _result_of(session, test, user)
+    result, stored = _result_of(session, test)
     events = history(session, "permeability_test", test_id)
-    performed = user.id in performer_ids(session, test)
-    people = _names(
+    performers = performer_ids(session, test)
+    performed = user.id in performers
+    allowed = lab_tests.allowed_actions(test, user, performers=performers)
+    people = names_of(
         session,
         {s.user_id for s in record.sign_offs}
         | {e.actor_id or 0 for e in events}
         | {test.technician_id or 0},
     )
-    certificates: list[Certificate] = list_certificates(session, user=user, sample_id=sample.id)
+    certificates, _ = list_certificates(session, user=user, sample_id=sample.id)
     issued_id = _int(request.query_params.get("issued"))
-    can_review = user.role in lifecycle.REVIEWERS
-    current = test.superseded_by_id is None
+    Action = lab_tests.Action
     checks = result["checks"] if result else []
     spec_check = next((c for c in checks if c["id"] == "specification"), None)
     k_ref = result["result"]["k_ref_m_per_s"] if result else None
@@ -293,12 +247,12 @@ def review_context(
         certificates=certificates,
         method_words=METHOD_WORDS,
         sign_off_words=SIGN_OFF_WORDS,
-        can_approve=test.state == TestState.SUBMITTED and can_review and not performed,
+        can_approve=Action.APPROVE in allowed,
         why_not_approve=_why_not_approve(test, user, performed),
-        can_send_back=test.state == TestState.SUBMITTED and can_review,
-        can_issue=test.state == TestState.APPROVED and user.role in ISSUERS and current,
-        can_correct=test.state in (TestState.APPROVED, TestState.ISSUED) and can_review and current,
-        read_only=not can_review,
+        can_send_back=Action.SEND_BACK in allowed,
+        can_issue=Action.ISSUE in allowed,
+        can_correct=Action.CORRECT in allowed,
+        read_only=not lab_tests.may_review(user),
         forms=forms or ActionForms(),
         notice=DONE_NOTICES.get(request.query_params.get("done", "")),
         issued_id=issued_id,
@@ -324,31 +278,20 @@ def _refused(
     user: User,
     test_id: int,
     forms: ActionForms,
-    exc: ServiceError | None = None,
+    tried: Attempt | None = None,
     status_code: int = 422,
 ) -> Response:
     """The action forms again, with the message beside the field and what was typed."""
-    session.rollback()  # nothing of a refused action may be committed
-    if exc is not None:
-        status_code = exc.status_code
-        forms.message = exc.message
-        if isinstance(exc, InvalidInput) and isinstance(exc.detail, list):
-            for problem in exc.detail:
-                loc = [str(p) for p in problem.get("loc", []) if p != "body"]
-                name = loc[0] if loc else "form"
-                forms.errors.setdefault(name, {"msg": problem.get("msg", ""), "kind": "invalid"})
-        if isinstance(exc, PermissionDenied) and isinstance(exc.detail, dict):
-            field = exc.detail.get("field")
-            if isinstance(field, str) and field:
-                forms.errors[field] = {"msg": exc.message, "kind": "invalid"}
-        if isinstance(exc, StaleVersion) and isinstance(exc.detail, dict):
-            forms.stale = {
-                "yours": exc.detail.get("yours", {}),
-                "current": exc.detail.get("current", {}),
-            }
-    if forms.errors and exc is not None and not isinstance(exc, StaleVersion):
-        # The reason sits beside its field; the banner says what it means for the test.
-        forms.message = "Nothing was signed or changed: see the message beside the field."
+    if tried is not None and tried.refused:
+        status_code = tried.status
+        forms.message = tried.message
+        errors, _ = tried.fields(lambda loc: str(loc[0]) if loc else None)
+        forms.errors.update(errors)
+        if tried.stale is not None:
+            forms.stale = {"yours": tried.stale.yours, "current": tried.stale.current}
+        elif forms.errors:
+            # The reason sits beside its field; the banner says what it means for the test.
+            forms.message = "Nothing was signed or changed: see the message beside the field."
     context = review_context(request, session, user, test_id, forms)
     return render(
         request,
@@ -357,14 +300,6 @@ def _refused(
         fragment="tests/_review_actions.html",
         status_code=status_code,
     )
-
-
-def _validation_forms(forms: ActionForms, exc: ValidationError) -> ActionForms:
-    for problem in exc.errors():
-        name = str(problem["loc"][0]) if problem["loc"] else "form"
-        forms.errors.setdefault(name, {"msg": f"{name}: {problem['msg']}", "kind": "invalid"})
-    forms.message = "Some entries were not accepted."
-    return forms
 
 
 async def _posted(request: Request, which: str, names: tuple[str, ...]) -> ActionForms:
@@ -390,14 +325,11 @@ async def approve(request: Request, session: SessionDep, user: StaffUser, test_i
         }
         forms.message = "Nothing was signed: the password is needed."
         return _refused(request, session, user, test_id, forms)
-    try:
+    with attempt(session, catch=(ServiceError,)) as tried:
         data = SignOffRequest(password=password, note=forms.values["note"], version=_version(forms))
-    except ValidationError as exc:
-        return _refused(request, session, user, test_id, _validation_forms(forms, exc))
-    try:
-        lifecycle.approve_test(session, test_id, data, actor=user)
-    except ServiceError as exc:
-        return _refused(request, session, user, test_id, forms, exc)
+        lab_tests.approve_test(session, test_id, data, actor=user)
+    if tried.refused:
+        return _refused(request, session, user, test_id, forms, tried)
     return redirect(request, f"/tests/{test_id}/review?done=approved")
 
 
@@ -407,14 +339,11 @@ async def send_back(
 ) -> Response:
     """Send a submitted test back to its technician; the reason is required and kept."""
     forms = await _posted(request, "send_back", ("reason", "version"))
-    try:
+    with attempt(session, catch=(ServiceError,)) as tried:
         data = SendBackRequest(reason=forms.values["reason"], version=_version(forms))
-    except ValidationError as exc:
-        return _refused(request, session, user, test_id, _validation_forms(forms, exc))
-    try:
-        lifecycle.send_back(session, test_id, data, actor=user)
-    except ServiceError as exc:
-        return _refused(request, session, user, test_id, forms, exc)
+        lab_tests.send_back(session, test_id, data, actor=user)
+    if tried.refused:
+        return _refused(request, session, user, test_id, forms, tried)
     return redirect(request, f"/tests/{test_id}/review?done=sent-back")
 
 
@@ -422,11 +351,11 @@ async def send_back(
 async def issue(request: Request, session: SessionDep, user: StaffUser, test_id: int) -> Response:
     """Issue the certificate of the test's sample (every approved test on it is reported)."""
     forms = await _posted(request, "issue", ())
-    try:
-        test = lifecycle.get_test(session, test_id, actor=user)
+    with attempt(session, catch=(ServiceError,)) as tried:
+        test = lab_tests.get_test(session, test_id, actor=user)
         certificate = issue_sample_certificate(session, test.sample_id, actor=user)
-    except ServiceError as exc:
-        return _refused(request, session, user, test_id, forms, exc)
+    if tried.refused:
+        return _refused(request, session, user, test_id, forms, tried)
     return redirect(request, f"/tests/{test_id}/review?issued={certificate.id}")
 
 
@@ -436,12 +365,9 @@ async def correction(
 ) -> Response:
     """Order a correction of an approved or issued test: a new revision, with the reason."""
     forms = await _posted(request, "correction", ("reason",))
-    try:
+    with attempt(session, catch=(ServiceError,)) as tried:
         data = CorrectionRequest(reason=forms.values["reason"])
-    except ValidationError as exc:
-        return _refused(request, session, user, test_id, _validation_forms(forms, exc))
-    try:
-        new = lifecycle.request_correction(session, test_id, data, actor=user)
-    except ServiceError as exc:
-        return _refused(request, session, user, test_id, forms, exc)
+        new = lab_tests.request_correction(session, test_id, data, actor=user)
+    if tried.refused:
+        return _refused(request, session, user, test_id, forms, tried)
     return redirect(request, f"/tests/{new.id}/review?done=corrected")

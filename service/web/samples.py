@@ -10,32 +10,31 @@ import segno
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
 from markupsafe import Markup
-from pydantic import ValidationError
 from sqlmodel import Session
 
 from service.access import is_client
 from service.accounts.models import User
+from service.accounts.service import names_of
 from service.audit.service import history
-from service.common import CustodyKind, Role, TestState
+from service.common import CustodyKind, TestState
 from service.custody.service import CustodyEventIn, add_custody_event, custody_timeline
 from service.deps import CurrentUser, LabStaff, SessionDep
-from service.errors import InvalidInput, PermissionDenied, ServiceError
+from service.errors import InvalidInput, PermissionDenied
+from service.lab_tests import service as lab_tests
 from service.lab_tests.schemas import REFERENCE_TEMPERATURES_C, TestCreate
-from service.lab_tests.service import request_test, sample_tests
 from service.projects.models import Location, Project
 from service.projects.service import get_project
 from service.samples.models import Sample
 from service.samples.service import get_sample
+from service.web.entries import METHOD_CHOICES, STANDARD_CHOICES
 from service.web.htmx import render
 from service.web.pages import layout_context
-from service.web.reception import field_errors, pydantic_problems, simple_name
+from service.web.refusals import Attempt, attempt, simple_name
 
 router = APIRouter(prefix="/samples", include_in_schema=False)
 
 MAX_LABELS = 200
 TEST_LIMIT = 200
-# Who may request a test from the sample page.
-TEST_REQUESTERS = frozenset({Role.LAB_MANAGER, Role.REVIEWER, Role.ADMIN})
 # Results a client sees: certified ones only (as in the exports).
 CLIENT_RESULT_STATES = frozenset({TestState.ISSUED.value, TestState.SUPERSEDED.value})
 CUSTODY_KINDS = tuple(
@@ -44,19 +43,6 @@ CUSTODY_KINDS = tuple(
     if kind != CustodyKind.RECEIVED
 )
 CUSTODY_FIELDS = ("kind", "from_holder", "to_holder", "place", "condition", "note")
-METHODS = (
-    ("falling_head", "Falling head, constant tailwater"),
-    ("falling_head_rising_tail", "Falling headwater, rising tailwater"),
-    ("constant_head", "Constant head"),
-    ("constant_rate", "Constant rate of flow"),
-)
-STANDARDS = (
-    ("", "None"),
-    ("ASTM D5084", "ASTM D5084"),
-    ("ASTM D5856", "ASTM D5856"),
-    ("ASTM D2434", "ASTM D2434"),
-    ("ISO 17892-11", "ISO 17892-11"),
-)
 TEST_FIELDS = ("method", "standard", "reference_temperature_c")
 
 
@@ -124,14 +110,6 @@ def labels_page(
 # --- the sample page -------------------------------------------------------------------------
 
 
-def _people(session: Session, ids: Iterable[int | None]) -> dict[int, str]:
-    names = {}
-    for user_id in {i for i in ids if i is not None}:
-        person = session.get(User, user_id)
-        names[user_id] = person.full_name if person else f"user {user_id}"
-    return names
-
-
 def _custody_form(values: Mapping[str, str] | None = None) -> dict[str, str]:
     form = dict.fromkeys(CUSTODY_FIELDS, "")
     form["kind"] = CustodyKind.MOVED.value
@@ -164,11 +142,11 @@ def sample_context(
     assert sample.id is not None
     project = get_project(session, sample.project_id, user=user)
     location = session.get(Location, sample.location_id) if sample.location_id else None
-    tests, _total = sample_tests(session, sample.id, actor=user, limit=TEST_LIMIT)
+    tests, _total = lab_tests.sample_tests(session, sample.id, actor=user, limit=TEST_LIMIT)
     events = list(custody_timeline(session, sample.id))
     client = is_client(user)
     audit = [] if client else history(session, "sample", sample.id)
-    people = _people(
+    people = names_of(
         session,
         [sample.received_by_id]
         + [t.technician_id for t in tests]
@@ -189,14 +167,14 @@ def sample_context(
         client_view=client,
         client_result_states=CLIENT_RESULT_STATES,
         can_record_custody=not client and sample.disposed_at is None,
-        can_request_test=user.role in TEST_REQUESTERS and sample.disposed_at is None,
+        can_request_test=lab_tests.may_request_tests(user) and sample.disposed_at is None,
         custody_kinds=CUSTODY_KINDS,
         custody_form=_custody_form(custody_form),
         custody_errors=custody_errors or {},
         custody_general=custody_general or [],
-        methods=METHODS,
-        method_names=dict(METHODS),
-        standards=STANDARDS,
+        methods=METHOD_CHOICES,
+        method_names=dict(METHOD_CHOICES),
+        standards=STANDARD_CHOICES,
         reference_temperatures=[(f"{t:g}", f"{t:g} °C") for t in REFERENCE_TEMPERATURES_C],
         test_form=_test_form(test_form),
         test_errors=test_errors or {},
@@ -226,32 +204,34 @@ async def custody_submit(
     message beside the field and everything typed kept."""
     values = _posted(await request.form(), CUSTODY_FIELDS)
     payload = {name: value.strip() for name, value in values.items()}
-    errors: dict[str, Any] = {}
-    general: list[str] = []
-    try:
-        data = CustodyEventIn.model_validate(payload)
-        add_custody_event(session, sample_id, data, actor=user)
-    except ValidationError as exc:
-        errors, general = field_errors(pydantic_problems(exc), simple_name(CUSTODY_FIELDS))
-    except InvalidInput as exc:
-        errors, general = field_errors(exc.detail or [], simple_name(CUSTODY_FIELDS))
-    refused = bool(errors or general)
-    context = sample_context(
-        request,
-        session,
-        user,
-        sample_id,
-        custody_form=values if refused else None,
-        custody_errors=errors,
-        custody_general=general,
-        saved="" if refused else "custody",
-    )
+    with attempt(session, catch=(InvalidInput,)) as tried:
+        add_custody_event(session, sample_id, CustodyEventIn.model_validate(payload), actor=user)
+    return _section(request, session, user, sample_id, "custody", tried, values, CUSTODY_FIELDS)
+
+
+def _section(
+    request: Request,
+    session: Session,
+    user: User,
+    sample_id: int,
+    name: str,
+    tried: Attempt,
+    values: Mapping[str, str],
+    fields: Iterable[str],
+) -> Response:
+    """A form's section after a save: what was saved, or the refusal beside its fields with
+    everything typed kept. `name` is the form ("custody" or "test")."""
+    errors, general = tried.fields(simple_name(fields))
+    shown: dict[str, Any] = {
+        f"{name}_form": values if tried.refused else None,
+        f"{name}_errors": errors,
+        f"{name}_general": general,
+    }
+    saved = "" if tried.refused else name
+    context = sample_context(request, session, user, sample_id, saved=saved, **shown)
+    fragment = "samples/_custody.html" if name == "custody" else "samples/_tests.html"
     return render(
-        request,
-        "samples/sample.html",
-        context,
-        fragment="samples/_custody.html",
-        status_code=422 if refused else 200,
+        request, "samples/sample.html", context, fragment=fragment, status_code=tried.status
     )
 
 
@@ -261,7 +241,7 @@ async def test_request_submit(
 ) -> Response:
     """Request a permeability test (lab managers, reviewers, admins); the project's specification
     limit applies. htmx gets the tests section back; a refusal keeps what was chosen."""
-    if user.role not in TEST_REQUESTERS:
+    if not lab_tests.may_request_tests(user):
         raise PermissionDenied("requesting a test needs a lab manager, a reviewer or an admin")
     values = _posted(await request.form(), TEST_FIELDS)
     payload: dict[str, Any] = {"method": values["method"].strip()}
@@ -269,34 +249,6 @@ async def test_request_submit(
         payload["standard"] = values["standard"].strip()
     if values["reference_temperature_c"].strip():
         payload["reference_temperature_c"] = values["reference_temperature_c"].strip()
-    errors: dict[str, Any] = {}
-    general: list[str] = []
-    try:
-        data = TestCreate.model_validate(payload)
-        request_test(session, sample_id, data, actor=user)
-    except ValidationError as exc:
-        errors, general = field_errors(pydantic_problems(exc), simple_name(TEST_FIELDS))
-    except InvalidInput as exc:
-        errors, general = field_errors(exc.detail or [], simple_name(TEST_FIELDS))
-    except ServiceError as exc:
-        if exc.status_code == 404:
-            raise
-        general = [exc.message]
-    refused = bool(errors or general)
-    context = sample_context(
-        request,
-        session,
-        user,
-        sample_id,
-        test_form=values if refused else None,
-        test_errors=errors,
-        test_general=general,
-        saved="" if refused else "test",
-    )
-    return render(
-        request,
-        "samples/sample.html",
-        context,
-        fragment="samples/_tests.html",
-        status_code=422 if refused else 200,
-    )
+    with attempt(session) as tried:
+        lab_tests.request_test(session, sample_id, TestCreate.model_validate(payload), actor=user)
+    return _section(request, session, user, sample_id, "test", tried, values, TEST_FIELDS)

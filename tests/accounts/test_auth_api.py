@@ -79,9 +79,9 @@ def test_lock_out_answers_429_until_an_admin_unlocks(
         session.commit()
     locked = client.post(TOKENS, json={"email": technician.email, "password": "not the one"})
     assert locked.status_code == 429
-    assert locked.json()["error"] == "too_many_attempts"
+    assert locked.json()["code"] == "too_many_attempts"
     assert "try again after" in locked.json()["detail"]
-    assert locked.json()["context"]["retry_after_seconds"] == 15 * 60
+    assert locked.json()["retry_after_seconds"] == 15 * 60
     # The right password does not get through while locked.
     right = client.post(TOKENS, json={"email": technician.email, "password": PASSWORD})
     assert right.status_code == 429
@@ -254,7 +254,7 @@ def test_short_new_password_is_refused_naming_the_field(
         headers=bearer(session, technician),
     )
     assert response.status_code == 422
-    (problem,) = response.json()["detail"]
+    (problem,) = response.json()["errors"]
     assert problem["loc"] == ["body", "new_password"]
     assert "10 characters" in problem["msg"]
 
@@ -262,7 +262,7 @@ def test_short_new_password_is_refused_naming_the_field(
 def test_missing_field_is_a_422_naming_it(client: TestClient) -> None:
     response = client.post(TOKENS, json={"password": PASSWORD})
     assert response.status_code == 422
-    assert [p["loc"] for p in response.json()["detail"]] == [["body", "email"]]
+    assert [p["loc"] for p in response.json()["errors"]] == [["body", "email"]]
 
 
 def test_anonymous_requests_answer_401(client: TestClient) -> None:

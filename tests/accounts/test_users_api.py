@@ -13,7 +13,7 @@ from sqlmodel import Session
 from service.accounts.models import Organisation, User
 from service.audit.service import history
 from service.common import OrganisationKind, Role
-from service.queue import MAX_LIMIT
+from service.paging import MAX_LIMIT
 from tests.accounts.conftest import PASSWORD
 from tests.auth_helpers import bearer
 from tests.factories import make_organisation, make_user
@@ -77,7 +77,7 @@ def test_list_is_paginated_with_total(
     assert all("password_hash" not in u for u in body["items"])
     too_big = client.get(USERS, params={"limit": MAX_LIMIT + 1}, headers=headers)
     assert too_big.status_code == 422
-    assert too_big.json()["detail"][0]["loc"] == ["query", "limit"]
+    assert too_big.json()["errors"][0]["loc"] == ["query", "limit"]
 
 
 def test_list_filters_by_role(client: TestClient, session: Session, admin: User) -> None:
@@ -131,7 +131,7 @@ def test_create_user_refusals_name_the_field(
 ) -> None:
     response = client.post(USERS, json=_new_user(lab, **fields), headers=bearer(session, admin))
     assert response.status_code == 422
-    (problem,) = response.json()["detail"]
+    (problem,) = response.json()["errors"]
     assert problem["loc"] == ["body", field]
     assert words in problem["msg"]
 
@@ -172,12 +172,12 @@ def test_stale_version_answers_409_with_both_versions(
     stale = client.patch(url, json={"version": 1, "full_name": "Second"}, headers=headers)
     assert stale.status_code == 409
     body = stale.json()
-    assert body["error"] == "stale_version"
-    assert body["context"]["sent_version"] == 1
-    assert body["context"]["current_version"] == 2
-    assert body["context"]["sent"] == {"full_name": "Second"}
-    assert body["context"]["current"]["full_name"] == "First"
-    assert "password_hash" not in body["context"]["current"]
+    assert body["code"] == "stale_version"
+    assert body["yours"]["version"] == 1
+    assert body["current"]["version"] == 2
+    assert body["yours"] == {"full_name": "Second", "version": 1}
+    assert body["current"]["full_name"] == "First"
+    assert "password_hash" not in body["current"]
     assert client.get(url, headers=headers).json()["full_name"] == "First"
 
 
@@ -190,7 +190,7 @@ def test_null_is_refused_naming_the_field(
         headers=bearer(session, admin),
     )
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "role"]
+    assert response.json()["errors"][0]["loc"] == ["body", "role"]
 
 
 def test_version_is_required(
@@ -200,7 +200,7 @@ def test_version_is_required(
         f"{USERS}/{technician.id}", json={"full_name": "X"}, headers=bearer(session, admin)
     )
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "version"]
+    assert response.json()["errors"][0]["loc"] == ["body", "version"]
 
 
 def test_deactivating_a_user_revokes_their_tokens(
@@ -273,4 +273,4 @@ def test_admin_creates_an_organisation_audited(
     assert again.status_code == 409
     bad_kind = client.post(ORGANISATIONS, json={**body, "kind": "vendor"}, headers=headers)
     assert bad_kind.status_code == 422
-    assert bad_kind.json()["detail"][0]["loc"] == ["body", "kind"]
+    assert bad_kind.json()["errors"][0]["loc"] == ["body", "kind"]

@@ -25,7 +25,7 @@ from service.accounts.models import User
 from service.apparatus.models import Apparatus
 from service.common import TestMethod, TestState
 from service.demo import DEMO_PASSWORDS, load_demo
-from service.lab_tests import service as lifecycle
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.schemas import SignOffRequest, SpecimenWrite, TestCreate, TestUpdate
 from service.projects.models import Project
@@ -194,7 +194,7 @@ def test_receive_to_client_portal(
             steps.page("request test", f"/samples/{sample.id}")
             test = the_test(session, sample.id)
         else:
-            test = lifecycle.request_test(
+            test = lab_tests.request_test(
                 session,
                 sample.id,
                 TestCreate(method=TestMethod.CONSTANT_HEAD, standard="ASTM D2434"),
@@ -213,7 +213,7 @@ def test_receive_to_client_portal(
             form.get_by_role("button", name="Save assignment").click()
             steps.page("assign", f"/tests/{test.id}/assign")
         else:
-            lifecycle.update_test(
+            lab_tests.update_test(
                 session,
                 test.id,
                 TestUpdate(
@@ -234,7 +234,7 @@ def test_receive_to_client_portal(
 
         # The specimen as prepared (the test page's specimen form is the technician
         # engineer's to test; here it is written through the service).
-        lifecycle.write_specimen(
+        lab_tests.write_specimen(
             fresh(session),
             test_id,
             SpecimenWrite(
@@ -315,7 +315,7 @@ def test_receive_to_client_portal(
                 shot(page, "reviewer-approved")
                 steps.page("approve", f"/tests/{test.id}/review")
             else:
-                lifecycle.approve_test(
+                lab_tests.approve_test(
                     fresh(session),
                     test_id,
                     SignOffRequest(password=DEMO_PASSWORDS[REVIEWER][1]),

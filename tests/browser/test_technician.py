@@ -120,7 +120,7 @@ def test_technician_records_and_submits_a_test(
         specimen.get_by_label("Length", exact=True).fill("116 mm")
         specimen.get_by_label("Wet mass").fill("912.4 g")
         specimen.get_by_label("Water content").fill("24.1 %")
-        specimen.get_by_label("Specific gravity, Gs").fill("2.71")
+        specimen.get_by_label("Specific gravity").fill("2.71")
         specimen.get_by_role("button", name="Save specimen").click()
         page.get_by_text("Specimen saved.").wait_for()
         page.locator("#test-header [data-state=running]").wait_for()

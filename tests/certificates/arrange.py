@@ -31,7 +31,7 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
-from service.lab_tests.payload import build_request, input_hash
+from service.lab_tests.reduction import build_request, input_hash
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff

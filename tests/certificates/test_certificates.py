@@ -226,7 +226,7 @@ def test_withdrawal_needs_a_reason_and_shows_on_verification(
     url = f"/api/v1/certificates/{certificate.id}/withdraw"
     refused = client.post(url, json={"reason": "  "}, headers=headers)
     assert refused.status_code == 422
-    assert refused.json()["detail"][0]["loc"] == ["body", "reason"]
+    assert refused.json()["errors"][0]["loc"] == ["body", "reason"]
     done = client.post(url, json={"reason": "Issued to the wrong client contact."}, headers=headers)
     assert done.status_code == 200
     assert done.json()["state"] == "withdrawn"
@@ -277,7 +277,8 @@ def test_issue_and_list_through_the_api(session: Session, client: TestClient, wo
         params={"sample_id": world.sample.id},
         headers=bearer(session, world.client_user),
     )
-    assert [c["id"] for c in listed.json()] == [body["id"]]
+    assert [c["id"] for c in listed.json()["items"]] == [body["id"]]
+    assert listed.json()["total"] == 1
     technician = client.post(
         f"/api/v1/certificates/samples/{world.sample.id}",
         headers=bearer(session, world.technician),
@@ -298,7 +299,7 @@ def test_a_client_of_another_organisation_gets_404(
         f"/api/v1/certificates?sample_id={world.sample.id}",
     ):
         assert client.get(url, headers=headers).status_code == 404, url
-    assert client.get("/api/v1/certificates", headers=headers).json() == []
+    assert client.get("/api/v1/certificates", headers=headers).json()["items"] == []
     own = client.get(
         f"/api/v1/certificates/{certificate.id}", headers=bearer(session, world.client_user)
     )

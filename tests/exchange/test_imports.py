@@ -100,7 +100,12 @@ def test_readings_by_column_number_and_other_units(
 @pytest.mark.parametrize(
     ("content", "fields", "loc", "words"),
     [
-        (LOGGER_CSV, {"time_column": "seconds"}, ["body", "time_column"], "no column 'seconds'"),
+        (
+            LOGGER_CSV,
+            {"time_column": "seconds"},
+            ["body", "time_column"],
+            "Time column: is not a column",
+        ),
         (LOGGER_CSV, {"head_column": "elapsed_s"}, ["body", "head_column"], "same column"),
         (LOGGER_CSV, {"head_unit": "kg"}, ["body", "head_unit"], "not a length"),
         (LOGGER_CSV, {"time_unit": "parsecs"}, ["body", "time_unit"], "is not a time"),
@@ -108,7 +113,7 @@ def test_readings_by_column_number_and_other_units(
             "elapsed_s,head_cm\n0,120\n60,abc\n",
             {},
             ["file", "row", 3, "column", "head_cm"],
-            "row 3, column 'head_cm': is not a number",
+            "Row 3 · head_cm: is not a number",
         ),
         (
             "elapsed_s,head_cm\n0,120\n-5,110\n",
@@ -138,16 +143,16 @@ def test_readings_by_column_number_and_other_units(
             "elapsed_s,head_cm\n0,120\n60,\n",
             {},
             ["file", "row", 3, "column", "head_cm"],
-            "an empty cell",
+            "Row 3 · head_cm: is empty",
         ),
-        ("elapsed_s,head_cm\n0,120\n", {}, ["file"], "1 reading(s) found"),
+        ("elapsed_s,head_cm\n0,120\n", {}, ["file"], "has 1 reading(s)"),
         ("", {}, ["body", "file"], "is empty"),
         ("\n\n", {}, ["body", "file"], "is empty"),
         (
             "elapsed_s,head_cm\n0,100\n600,110\n1200,120\n",
             {},
             ["file", "row", 3, "column", "head_cm"],
-            "row 3",
+            "Row 3 · head_cm: ",
         ),
     ],
 )
@@ -168,7 +173,7 @@ def test_every_readings_error_names_its_place(
         **fields,
     )
     assert status == 422, body
-    problems = body["detail"]
+    problems = body["errors"]
     assert any(p["loc"] == loc and words in p["msg"] for p in problems), problems
 
 
@@ -178,17 +183,17 @@ def test_readings_file_that_is_not_text_or_not_csv(
     headers = bearer(session, readings_world.world.technician)
     status, body = post_readings(client, headers, readings_world.test.id, b"\xff\xfe\x00bad")
     assert status == 422
-    assert "not UTF-8" in body["detail"][0]["msg"]
+    assert "not UTF-8" in body["errors"][0]["msg"]
     status, body = post_readings(
         client, headers, readings_world.test.id, LOGGER_CSV, filename="logger.pdf"
     )
     assert status == 422
-    assert "not a CSV or XLSX" in body["detail"][0]["msg"]
+    assert "not a CSV or XLSX" in body["errors"][0]["msg"]
     status, body = post_readings(
         client, headers, readings_world.test.id, b"PK\x03\x04broken", filename="x.xlsx"
     )
     assert status == 422
-    assert "not a readable XLSX" in body["detail"][0]["msg"]
+    assert "not a readable XLSX" in body["errors"][0]["msg"]
 
 
 def test_readings_preview_respects_access(
@@ -218,8 +223,8 @@ def test_readings_wrong_temperature_unit_is_named(
         temperature="20 C",
     )
     assert status == 422
-    assert body["detail"][0]["loc"] == ["body", "temperature"]
-    assert "degC" in body["detail"][0]["msg"]
+    assert body["errors"][0]["loc"] == ["body", "temperature"]
+    assert "degC" in body["errors"][0]["msg"]
 
 
 # --- schedules -------------------------------------------------------------------------
@@ -317,7 +322,7 @@ def test_schedule_from_xlsx(session: Session, client: TestClient, world: World) 
         (
             "client_sample_id,sample_type\nA,tube\nB,barrel\n",
             ["file", "row", 3, "column", "sample_type"],
-            "row 3, column 'sample_type'",
+            "Row 3 · sample_type: ",
         ),
         (
             "sample_type,seal_intact\ntube,maybe\n",
@@ -337,17 +342,17 @@ def test_schedule_from_xlsx(session: Session, client: TestClient, world: World) 
         (
             "sample_type,depth_top,depth_bottom\ntube,2 m,1 m\n",
             ["file", "row", 2, "column", "depth_bottom"],
-            "is above depth_top",
+            "is above the top depth",
         ),
         (
             "sample_type,depth_top\ntube,2 kg\n",
             ["file", "row", 2, "column", "depth_top"],
-            "row 2",
+            "Row 2 · depth_top: ",
         ),
         (
             "client_sample_id,sample_type\nA,tube\na,tube\n",
             ["file", "row", 3, "column", "client_sample_id"],
-            "also row",
+            "appears more than once",
         ),
         ("client_sample_id,sample_type\n", ["file"], "no data rows"),
         ("sample_type,priority\ntube,whenever\n", ["file", "row", 2, "column", "priority"], ""),
@@ -369,7 +374,7 @@ def test_every_schedule_error_names_its_place_and_stores_nothing(
     assert any(p["loc"] == loc and words in p["msg"] for p in body["errors"]), body["errors"]
     status, body = post_schedule(client, headers, world.project.id, content, save=True)
     assert status == 422
-    assert any(p["loc"] == loc for p in body["detail"])
+    assert any(p["loc"] == loc for p in body["errors"])
     assert sample_count(session) == before
 
 

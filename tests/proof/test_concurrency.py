@@ -136,7 +136,7 @@ def _tablet(
             with outcome.lock:
                 outcome.edits.setdefault(trial["id"], []).append(edit.status_code)
             if edit.status_code == 409:
-                context = edit.json().get("context", {})
+                context = edit.json()  # problem details: both versions beside the detail
                 if not {"yours", "current"} <= set(context):
                     outcome.problems.append(f"409 without both versions: {edit.text[:200]}")
 
@@ -202,7 +202,7 @@ def test_an_edit_against_an_old_version_is_refused_with_both_versions(proof: Pro
         url, json={"version": proof.trial.version, "temperature": "20.4 degC"}, headers=headers
     )
     assert stale.status_code == 409
-    context = stale.json()["context"]
+    context = stale.json()
     assert context["yours"]["version"] == proof.trial.version
     assert context["current"]["version"] == proof.trial.version + 1
     proof.session.expire_all()

@@ -159,7 +159,7 @@ def test_an_account_is_locked_after_repeated_failures_with_retry_after(proof: Pr
     waiting = proof.client.post("/api/v1/auth/tokens", json=_credentials(proof))
     assert waiting.status_code == 429
     assert int(waiting.headers["retry-after"]) >= 1
-    assert waiting.json()["context"]["retry_after_seconds"] == int(waiting.headers["retry-after"])
+    assert waiting.json()["retry_after_seconds"] == int(waiting.headers["retry-after"])
 
 
 def _fail_from_one_address(proof: Proof, client: TestClient | None = None) -> None:
@@ -333,8 +333,8 @@ def test_an_oversized_json_body_is_refused_naming_the_limit(proof: Proof, small_
         headers=proof.headers("lab_manager"),
     )
     _names_the_limit(response, small_limit)
-    assert response.json()["error"] == "too_large"
-    assert response.json()["context"] == {"limit_bytes": small_limit}
+    assert response.json()["code"] == "too_large"
+    assert response.json()["limit_bytes"] == small_limit
 
 
 def test_a_streamed_body_without_length_is_cut_off_at_the_limit(
@@ -413,7 +413,7 @@ def test_nan_and_infinity_are_refused_with_422_naming_the_field(
         },
     )
     assert response.status_code == 422, response.text
-    problems = response.json()["detail"]
+    problems = response.json()["errors"]
     assert any(field in p["loc"] for p in problems)
     assert all(p["msg"] for p in problems)
 
@@ -455,9 +455,10 @@ def test_numbers_too_large_for_the_database_are_refused_not_crashed(
     # service's own refusal); SQLite's driver cannot bind it at all (422 naming the field).
     assert response.status_code in (404, 422), response.text
     if response.status_code == 422 and "out_of_range" in response.text:
-        problem = response.json()["detail"][0]
+        problem = response.json()["errors"][0]
         assert field in problem["loc"]
-        assert "2147483647" in problem["msg"]
+        assert "too large" in problem["msg"]
+        assert "2147483647" in problem["accepted"]
 
 
 def test_a_nul_character_in_text_is_refused_not_crashed(proof: Proof) -> None:
@@ -472,6 +473,6 @@ def test_a_nul_character_in_text_is_refused_not_crashed(proof: Proof) -> None:
     )
     # Refused on both databases (PostgreSQL could not store it; SQLite would store garbage).
     assert location.status_code == 422, location.text
-    problem = location.json()["detail"][0]
+    problem = location.json()["errors"][0]
     assert problem["loc"][-1] == "name"
-    assert problem["msg"].startswith("contains the invisible control character U+0000")
+    assert "contains the invisible control character U+0000" in problem["msg"]

@@ -37,13 +37,14 @@ def _message_of(response: Any) -> str:
     body = json.loads(text)
     if not isinstance(body, dict):
         return ""
+    # RFC 9457 problem details: `detail` is always a sentence, field errors under `errors`.
     detail = body.get("detail")
-    if isinstance(detail, str):
-        return detail
-    if isinstance(detail, list) and detail:
-        messages = [item.get("msg", "") for item in detail if isinstance(item, dict)]
-        return "; ".join(messages) if all(messages) else ""
-    return ""
+    errors = body.get("errors")
+    if isinstance(errors, list) and errors:
+        messages = [item.get("msg", "") for item in errors if isinstance(item, dict)]
+        if not all(messages):
+            return ""
+    return detail if isinstance(detail, str) else ""
 
 
 def _real_ids(proof: Proof) -> dict[str, Any]:

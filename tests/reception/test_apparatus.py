@@ -53,7 +53,7 @@ def test_resolution_of_the_wrong_dimension_is_refused(client: TestClient, lab: L
         headers=lab.manager_headers,
     )
     assert response.status_code == 422
-    problem = response.json()["detail"][0]
+    problem = response.json()["errors"][0]
     assert problem["loc"] == ["body", "resolution"]
     assert "mass" in problem["msg"]
 
@@ -78,7 +78,7 @@ def test_permeameter_geometry_as_typed(client: TestClient, lab: Lab) -> None:
         headers=lab.manager_headers,
     )
     assert wrong.status_code == 422
-    assert wrong.json()["detail"][0]["loc"] == ["body", "port_spacing"]
+    assert wrong.json()["errors"][0]["loc"] == ["body", "port_spacing"]
 
 
 def test_overdue_flag_and_filter(client: TestClient, lab: Lab) -> None:
@@ -116,7 +116,9 @@ def test_due_before_calibration_is_refused(client: TestClient, lab: Lab) -> None
         headers=lab.manager_headers,
     )
     assert response.status_code == 422
-    assert "calibration_due" in response.json()["detail"][0]["msg"]
+    problem = response.json()["errors"][0]
+    assert problem["loc"] == ["body", "calibration_due"]
+    assert "before the calibration date" in problem["msg"]
 
 
 def test_identifier_is_unique(client: TestClient, lab: Lab) -> None:
@@ -137,7 +139,7 @@ def test_stale_version_and_update(client: TestClient, lab: Lab) -> None:
     assert done.json()["resolution_si"] == pytest.approx(1e-5)
     stale = client.patch(url, json={"version": 1, "description": "x"}, headers=lab.manager_headers)
     assert stale.status_code == 409
-    assert stale.json()["context"]["current_version"] == 2
+    assert stale.json()["current"]["version"] == 2
 
 
 def test_technicians_read_but_do_not_edit(client: TestClient, lab: Lab) -> None:

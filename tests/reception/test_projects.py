@@ -39,10 +39,12 @@ def test_limit_of_the_wrong_kind_is_refused_naming_the_field(
 ) -> None:
     response = _create(client, lab, spec_k_max=typed)
     assert response.status_code == 422
-    problem = response.json()["detail"][0]
+    problem = response.json()["errors"][0]
     assert problem["loc"] == ["body", "spec_k_max"]
+    assert problem["label"] == "Specification limit on k"
     assert reason in problem["msg"]
-    assert "m/s" in problem["msg"]  # what is accepted
+    assert problem["value"] == typed
+    assert "m/s" in problem["accepted"]
 
 
 def test_number_is_unique_per_client(client: TestClient, lab: Lab) -> None:
@@ -53,7 +55,7 @@ def test_number_is_unique_per_client(client: TestClient, lab: Lab) -> None:
 def test_unknown_client_is_refused(client: TestClient, lab: Lab) -> None:
     response = _create(client, lab, client_id=lab.lab.id)  # the lab is not a client
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "client_id"]
+    assert response.json()["errors"][0]["loc"] == ["body", "client_id"]
 
 
 @pytest.mark.parametrize("who", ["technician_headers", "client_headers"])
@@ -74,10 +76,10 @@ def test_stale_version_answers_409_with_both_versions(client: TestClient, lab: L
     stale = client.patch(url, json={"version": 1, "name": "Renamed"}, headers=lab.manager_headers)
     assert stale.status_code == 409
     body = stale.json()
-    assert body["error"] == "stale_version"
-    assert body["context"]["your_version"] == 1
-    assert body["context"]["current_version"] == 2
-    assert body["context"]["current"]["turnaround_days"] == 20
+    assert body["code"] == "stale_version"
+    assert body["yours"]["version"] == 1
+    assert body["current"]["version"] == 2
+    assert body["current"]["turnaround_days"] == 20
     assert client.get(url, headers=lab.manager_headers).json()["name"] == "Cell 4 liner"
 
 
@@ -98,7 +100,7 @@ def test_update_is_audited_with_who_and_old_and_new(client: TestClient, lab: Lab
 def test_unknown_audit_entity_is_refused(client: TestClient, lab: Lab) -> None:
     response = client.get("/api/v1/audit/banana/1", headers=lab.manager_headers)
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["path", "entity"]
+    assert response.json()["errors"][0]["loc"] == ["path", "entity"]
 
 
 def test_project_list_filters_and_pages(client: TestClient, lab: Lab) -> None:
@@ -140,7 +142,7 @@ def test_locations_with_ground_level_as_typed(client: TestClient, lab: Lab) -> N
         url, json={**body, "name": "TP-03", "ground_level": "3 s"}, headers=lab.technician_headers
     )
     assert wrong.status_code == 422
-    assert wrong.json()["detail"][0]["loc"] == ["body", "ground_level"]
+    assert wrong.json()["errors"][0]["loc"] == ["body", "ground_level"]
     listed = client.get(url, headers=lab.client_headers).json()
     assert [loc["name"] for loc in listed["items"]] == ["BH-01", "TP-02"]
     assert listed["total"] == 2

@@ -126,14 +126,14 @@ def test_custody_event_needs_its_kinds_fields(client: TestClient, lab: Lab) -> N
         headers=lab.technician_headers,
     )
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "place"]
+    assert response.json()["errors"][0]["loc"] == ["body", "place"]
     unknown = client.post(
         f"/api/v1/samples/{sample['id']}/custody",
         json={"kind": "lost"},
         headers=lab.technician_headers,
     )
     assert unknown.status_code == 422
-    assert unknown.json()["detail"][0]["loc"] == ["body", "kind"]
+    assert unknown.json()["errors"][0]["loc"] == ["body", "kind"]
 
 
 def test_batch_errors_name_row_and_field_and_store_nothing(
@@ -148,16 +148,17 @@ def test_batch_errors_name_row_and_field_and_store_nothing(
     rows[4]["depth_top"] = "-1 m"
     response = receive(client, lab, batch_body(rows))
     assert response.status_code == 422, response.text
-    problems = {tuple(p["loc"]): p["msg"] for p in response.json()["detail"]}
+    problems = {tuple(p["loc"]): p for p in response.json()["errors"]}
     assert set(problems) == {
         ("body", "samples", 1, "location"),
         ("body", "samples", 2, "depth_top"),
         ("body", "samples", 3, "depth_bottom"),
         ("body", "samples", 4, "depth_top"),
     }
-    assert "BH-01" in problems[("body", "samples", 1, "location")]  # what is accepted
-    assert "'2 kg'" in problems[("body", "samples", 2, "depth_top")]  # the value received
-    assert "length" in problems[("body", "samples", 2, "depth_top")]
+    assert "BH-01" in problems[("body", "samples", 1, "location")]["accepted"]
+    assert problems[("body", "samples", 2, "depth_top")]["value"] == "2 kg"
+    assert "length" in problems[("body", "samples", 2, "depth_top")]["msg"]
+    assert problems[("body", "samples", 2, "depth_top")]["label"] == "Sample 3 · Depth top"
     assert _count(session, Sample) == 0
     assert _count(session, CustodyEvent) == 0
     assert _count(session, IdempotencyRecord) == 0
@@ -167,7 +168,7 @@ def test_schema_errors_name_row_and_field(client: TestClient, session: Session, 
     rows = [{"sample_type": "tube"}, {"sample_type": "bucket"}]
     response = receive(client, lab, batch_body(rows))
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "samples", 1, "sample_type"]
+    assert response.json()["errors"][0]["loc"] == ["body", "samples", 1, "sample_type"]
     assert _count(session, Sample) == 0
 
 
@@ -178,7 +179,7 @@ def test_duplicate_client_ids_in_one_batch_are_refused(client: TestClient, lab: 
     ]
     response = receive(client, lab, batch_body(rows))
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "samples", 1, "client_sample_id"]
+    assert response.json()["errors"][0]["loc"] == ["body", "samples", 1, "client_sample_id"]
 
 
 def test_future_receipt_is_refused(client: TestClient, lab: Lab) -> None:
@@ -186,7 +187,7 @@ def test_future_receipt_is_refused(client: TestClient, lab: Lab) -> None:
     body["received_at"] = "2999-01-01T00:00:00+00:00"
     response = receive(client, lab, body)
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["body", "received_at"]
+    assert response.json()["errors"][0]["loc"] == ["body", "received_at"]
 
 
 def test_retried_batch_is_stored_once(client: TestClient, session: Session, lab: Lab) -> None:
@@ -218,7 +219,7 @@ def test_missing_idempotency_key_is_refused(client: TestClient, lab: Lab) -> Non
         headers=lab.technician_headers,
     )
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"][0] == "header"
+    assert response.json()["errors"][0]["loc"][0] == "header"
 
 
 def test_clients_cannot_receive(client: TestClient, lab: Lab) -> None:

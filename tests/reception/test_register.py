@@ -46,7 +46,7 @@ def test_empty_lookup_is_refused(client: TestClient, lab: Lab) -> None:
         "/api/v1/samples/lookup", params={"code": "   "}, headers=lab.technician_headers
     )
     assert response.status_code == 422
-    assert response.json()["detail"][0]["loc"] == ["query", "code"]
+    assert response.json()["errors"][0]["loc"] == ["query", "code"]
 
 
 def test_sample_list_filters_and_pages(client: TestClient, lab: Lab) -> None:
@@ -79,7 +79,7 @@ def test_correction_is_versioned_and_audited(client: TestClient, lab: Lab) -> No
         url, json={"version": 2, "depth_bottom": "1 m"}, headers=lab.technician_headers
     )
     assert above.status_code == 422
-    assert above.json()["detail"][0]["loc"] == ["body", "depth_bottom"]
+    assert above.json()["errors"][0]["loc"] == ["body", "depth_bottom"]
     stale = client.patch(url, json={"version": 1, "condition": "x"}, headers=lab.technician_headers)
     assert stale.status_code == 409
     history = client.get(f"/api/v1/audit/sample/{sample['id']}", headers=lab.manager_headers)

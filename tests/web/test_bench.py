@@ -114,7 +114,7 @@ def test_refused_entry_is_named_beside_its_field_and_everything_is_kept(
         assert f'value="{typed}"' in text
     assert 'name="trials.0.head_final" type="text" value="70 C" inputmode="decimal"' in text
     assert 'aria-invalid="true"' in text
-    assert "Trial 1: head at end" in text
+    assert "Trial 1 · Head at end" in text
 
 
 def test_refused_entry_fragment_leaves_the_form_alone(

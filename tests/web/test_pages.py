@@ -293,14 +293,16 @@ def test_unknown_page_is_an_html_404_but_the_api_keeps_json(web_client: TestClie
     assert not is_full_page(fragment.text)
     api = web_client.get("/api/v1/no-such-thing")
     assert api.status_code == 404
-    assert api.json() == {"detail": "Not Found"}
+    assert api.headers["content-type"] == "application/problem+json"
+    assert api.json()["status"] == 404
+    assert api.json()["detail"] == "there is nothing at /api/v1/no-such-thing"
 
 
 def test_api_service_errors_stay_json(web_client: TestClient) -> None:
     response = web_client.get("/api/v1/auth/tokens")
     assert response.status_code == 401
-    assert response.headers["content-type"].startswith("application/json")
-    assert response.json()["error"] == "not_authenticated"
+    assert response.headers["content-type"] == "application/problem+json"
+    assert response.json()["code"] == "not_authenticated"
 
 
 def test_web_error_handling_installs_once(web_client: TestClient) -> None:

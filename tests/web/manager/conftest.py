@@ -15,7 +15,7 @@ from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind, OrganisationKind, Preparation, Role, TestMethod
 from service.db import utcnow
-from service.lab_tests import service as lifecycle
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.schemas import SignOffRequest, SpecimenWrite, TestCreate, TrialCreate
 from service.projects.models import Project
@@ -135,7 +135,7 @@ def new_test(
     )
     assert sample.id is not None
     tech = technician if technician is not None else lab.technician
-    test = lifecycle.request_test(
+    test = lab_tests.request_test(
         session,
         sample.id,
         TestCreate(
@@ -175,7 +175,7 @@ def submitted_test(
     assert test.id is not None
     performer = performer or kwargs.get("technician") or lab.technician  # type: ignore[assignment]
     assert performer is not None
-    lifecycle.write_specimen(
+    lab_tests.write_specimen(
         session,
         test.id,
         SpecimenWrite(
@@ -189,7 +189,7 @@ def submitted_test(
         actor=performer,
     )
     for seq, k in enumerate((2.0e-10, 2.1e-10, 1.95e-10), start=1):
-        lifecycle.record_trial(
+        lab_tests.record_trial(
             session,
             test.id,
             TrialCreate(**falling_head_entries(k)),
@@ -204,14 +204,14 @@ def submitted_test(
             {"time": f"{t} s", "head": f"{100 * math.exp(-slope * t):.3f} cm"}
             for t in (0, 5400, 10800, 16200, 21600)
         ]
-        lifecycle.record_trial(
+        lab_tests.record_trial(
             session,
             test.id,
             TrialCreate(readings=readings, temperature="20.0 degC"),  # type: ignore[arg-type]
             idempotency_key=f"t{test.id}-readings",
             actor=performer,
         )
-    lifecycle.submit_test(session, test.id, SignOffRequest(password=PASSWORD), actor=performer)
+    lab_tests.submit_test(session, test.id, SignOffRequest(password=PASSWORD), actor=performer)
     session.commit()
     return test
 

@@ -95,7 +95,9 @@ def test_refused_item_keeps_everything_typed(
         assert f'value="{typed[name]}"' in answer.text, name
     assert 'value="2025-01-01"' in answer.text
     # The message sits beside the field that caused it.
-    assert re.search(r'id="err-calibration_due"[^>]*>.*?before calibrated_on', answer.text, re.S)
+    assert re.search(
+        r'id="err-calibration_due"[^>]*>.*?before the calibration date', answer.text, re.S
+    )
     assert _item(session, "PRM-T9") is None
 
 

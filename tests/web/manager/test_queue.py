@@ -12,7 +12,7 @@ from sqlmodel import Session
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind, Role
 from service.db import utcnow
-from service.lab_tests import service as lifecycle
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from tests.factories import make_organisation, make_project, make_user
 from tests.web.manager.conftest import HTMX, Lab, new_test, signed_in
@@ -56,7 +56,7 @@ def test_filters_narrow_the_table(session: Session, lab: Lab, web_client: TestCl
     new_test(session, lab, lab_id="26-0203", project=other_project)
     running = new_test(session, lab, lab_id="26-0204")
     assert running.id is not None
-    lifecycle.start_test(session, running.id, actor=lab.technician)
+    lab_tests.start_test(session, running.id, actor=lab.technician)
     session.commit()
     signed_in(session, web_client, lab.manager)
 
@@ -95,7 +95,7 @@ def test_sort_by_priority_and_state(session: Session, lab: Lab, web_client: Test
     new_test(session, lab, lab_id="26-0402", due=today + timedelta(days=9), priority="urgent")
     started = new_test(session, lab, lab_id="26-0403", due=today + timedelta(days=5))
     assert started.id is not None
-    lifecycle.start_test(session, started.id, actor=lab.technician)
+    lab_tests.start_test(session, started.id, actor=lab.technician)
     session.commit()
     signed_in(session, web_client, lab.manager)
     assert _rows(web_client.get("/queue").text) == ["26-0401", "26-0403", "26-0402"]
@@ -197,7 +197,7 @@ def test_assign_saves_through_update_test(
     assert saved is not None
     assert saved.technician_id == lab.technician_2.id
     assert saved.version == read_version + 1
-    assert {a.identifier for a in lifecycle.apparatus_of(session, test.id or 0)} == {
+    assert {a.identifier for a in lab_tests.apparatus_of(session, test.id or 0)} == {
         "PRM-T1",
         "TMR-T1",
     }

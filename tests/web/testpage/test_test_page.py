@@ -14,8 +14,8 @@ import pytest
 from sqlmodel import select
 
 from service.common import TestState
+from service.lab_tests import service as lab_tests
 from service.lab_tests.models import SaturationStep, Specimen, Trial
-from service.lab_tests.service import apparatus_of
 from service.signoffs.models import SignOff
 from tests.web.testpage.conftest import HTMX, PASSWORD, Lab
 
@@ -300,7 +300,8 @@ def test_choosing_a_permeameter_shows_its_geometry(lab: Lab) -> None:
     page = lab.client.get(lab.url("/permeameter"), params=query)
     assert '<html lang="en">' in page.text
     assert "15.0 cm" in page.text
-    assert apparatus_of(lab.session, lab.test_id)[0].identifier == "PERM-CV2"  # nothing saved
+    # nothing saved
+    assert lab_tests.apparatus_of(lab.session, lab.test_id)[0].identifier == "PERM-CV2"
 
 
 def test_apparatus_is_assigned_from_the_picker(lab: Lab) -> None:
@@ -314,7 +315,7 @@ def test_apparatus_is_assigned_from_the_picker(lab: Lab) -> None:
     assert response.status_code == 200, response.text
     assert "Apparatus saved." in response.text
     lab.fresh()
-    assigned = {a.identifier for a in apparatus_of(lab.session, lab.test_id)}
+    assigned = {a.identifier for a in lab_tests.apparatus_of(lab.session, lab.test_id)}
     assert assigned == {"PERM-TAPS", "THERM-OK"}
     assert 'id="tv-apparatus" name="version" value="2"' in response.text
 
@@ -329,7 +330,7 @@ def test_stale_apparatus_choice_is_kept_and_refused(lab: Lab) -> None:
     assert selected is not None
     assert selected.group(1) == str(lab.spaced_permeameter.id)
     lab.fresh()
-    assert apparatus_of(lab.session, lab.test_id)[0].identifier == "PERM-CV2"
+    assert lab_tests.apparatus_of(lab.session, lab.test_id)[0].identifier == "PERM-CV2"
 
 
 # ---------- live reduction ----------

@@ -1,5 +1,5 @@
 """Permeability tests: request, conditions, specimen, saturation, sign-offs, corrections and
-recomputation under /api/v1 (rules in service/lab_tests/service.py)."""
+recomputation under /api/v1 (rules in service/lab_tests/)."""
 
 from __future__ import annotations
 
@@ -7,9 +7,9 @@ from typing import Any
 
 from fastapi import APIRouter
 
-from service.api.queue import Limit, Offset
+from service.api.paging import Paging
 from service.deps import CurrentUser, LabStaff, SessionDep
-from service.lab_tests import service
+from service.lab_tests import service as lab_tests
 from service.lab_tests.schemas import (
     CorrectionRequest,
     LiveReduction,
@@ -25,7 +25,7 @@ from service.lab_tests.schemas import (
     TestSummary,
     TestUpdate,
 )
-from service.queue import DEFAULT_LIMIT, Page
+from service.paging import Page
 
 router = APIRouter(prefix="/api/v1", tags=["tests"])
 
@@ -37,10 +37,6 @@ _ERRORS: dict[int | str, dict[str, Any]] = {
 }
 
 
-def _read(session: SessionDep, test_id: int, user: CurrentUser) -> TestRead:
-    return service.describe_test(service.load_record(session, test_id, actor=user))
-
-
 @router.post(
     "/samples/{sample_id}/tests", status_code=201, response_model=TestRead, responses=_ERRORS
 )
@@ -49,8 +45,8 @@ def request_test(sample_id: int, data: TestCreate, session: SessionDep, user: La
     dry density, reference temperature (20 °C, or 10 or 27), temperature correction, and the
     project's specification limit unless `spec_k_max` overrides it. Optionally assign a
     technician and apparatus now."""
-    test = service.request_test(session, sample_id, data, actor=user)
-    return _read(session, test.id or 0, user)
+    test = lab_tests.request_test(session, sample_id, data, actor=user)
+    return lab_tests.read_test(session, test.id or 0, actor=user)
 
 
 @router.get("/samples/{sample_id}/tests", response_model=Page[TestSummary], responses=_ERRORS)
@@ -58,35 +54,33 @@ def list_sample_tests(
     sample_id: int,
     session: SessionDep,
     user: CurrentUser,
-    limit: Limit = DEFAULT_LIMIT,
-    offset: Offset = 0,
+    paging: Paging,
 ) -> Page[TestSummary]:
     """The tests and revisions of a sample (a client sees only its own organisation's)."""
-    rows, total = service.sample_tests(session, sample_id, actor=user, limit=limit, offset=offset)
-    items = [TestSummary.model_validate(row.model_dump()) for row in rows]
-    return Page[TestSummary](items=items, total=total, limit=limit, offset=offset)
+    rows, total = lab_tests.sample_tests(session, sample_id, actor=user, **paging.window)
+    return paging.of(rows, total, lambda row: TestSummary.model_validate(row.model_dump()))
 
 
 @router.get("/tests/{test_id}", response_model=TestRead, responses=_ERRORS)
 def read_test(test_id: int, session: SessionDep, user: CurrentUser) -> TestRead:
     """A test with its apparatus, specimen, saturation steps, trials and readings, sign-offs
     and the stored result."""
-    return _read(session, test_id, user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.patch("/tests/{test_id}", response_model=TestRead, responses=_ERRORS)
 def update_test(test_id: int, data: TestUpdate, session: SessionDep, user: LabStaff) -> TestRead:
     """Change the request, conditions (permeant, cell/back/effective pressures with units),
     technician or apparatus of a planned or running test, against the `version` you read."""
-    service.update_test(session, test_id, data, actor=user)
-    return _read(session, test_id, user)
+    lab_tests.update_test(session, test_id, data, actor=user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.post("/tests/{test_id}/start", response_model=TestRead, responses=_ERRORS)
 def start_test(test_id: int, session: SessionDep, user: LabStaff) -> TestRead:
     """Planned → running (the first specimen, saturation or trial write does this too)."""
-    service.start_test(session, test_id, actor=user)
-    return _read(session, test_id, user)
+    lab_tests.start_test(session, test_id, actor=user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.patch("/tests/{test_id}/specimen", response_model=SpecimenRead, responses=_ERRORS)
@@ -95,7 +89,7 @@ def write_specimen(
 ) -> SpecimenRead:
     """Record the specimen, or change the fields sent; each value typed with its unit.
     Once the specimen exists, send its `version`."""
-    specimen = service.write_specimen(session, test_id, data, actor=user)
+    specimen = lab_tests.write_specimen(session, test_id, data, actor=user)
     return SpecimenRead.model_validate(specimen.model_dump())
 
 
@@ -109,14 +103,14 @@ def add_saturation_step(
     test_id: int, data: SaturationStepCreate, session: SessionDep, user: LabStaff
 ) -> SaturationStepRead:
     """Append a back-pressure saturation step and the B-value measured after it."""
-    step = service.add_saturation_step(session, test_id, data, actor=user)
+    step = lab_tests.add_saturation_step(session, test_id, data, actor=user)
     return SaturationStepRead.model_validate(step.model_dump())
 
 
 @router.get("/tests/{test_id}/reduction", response_model=LiveReduction, responses=_ERRORS)
 def read_live_reduction(test_id: int, session: SessionDep, user: CurrentUser) -> LiveReduction:
     """The reduction of what is recorded now (stores nothing); `pending` names what is missing."""
-    return service.live_reduction(session, test_id, actor=user)
+    return lab_tests.live_reduction(session, test_id, actor=user)
 
 
 @router.post("/tests/{test_id}/submit", response_model=TestRead, responses=_ERRORS)
@@ -126,8 +120,8 @@ def submit_test(
     """Submit with your sign-off (re-enter your password). Refused while any assigned
     apparatus is past its calibration due date; stores the engine's result, its version and
     the input hash."""
-    service.submit_test(session, test_id, data, actor=user)
-    return _read(session, test_id, user)
+    lab_tests.submit_test(session, test_id, data, actor=user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.post("/tests/{test_id}/approve", response_model=TestRead, responses=_ERRORS)
@@ -136,15 +130,15 @@ def approve_test(
 ) -> TestRead:
     """Approve with a reviewer's sign-off (re-enter your password); nobody approves a test
     they performed."""
-    service.approve_test(session, test_id, data, actor=user)
-    return _read(session, test_id, user)
+    lab_tests.approve_test(session, test_id, data, actor=user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.post("/tests/{test_id}/send-back", response_model=TestRead, responses=_ERRORS)
 def send_back(test_id: int, data: SendBackRequest, session: SessionDep, user: LabStaff) -> TestRead:
     """Send a submitted test back to its technician with a reason (required)."""
-    service.send_back(session, test_id, data, actor=user)
-    return _read(session, test_id, user)
+    lab_tests.send_back(session, test_id, data, actor=user)
+    return lab_tests.read_test(session, test_id, actor=user)
 
 
 @router.post(
@@ -155,12 +149,12 @@ def request_correction(
 ) -> TestRead:
     """Correct an approved or issued test: creates the next revision (answered here) with the
     reason; the old test points to it and is superseded when the new one is approved."""
-    new = service.request_correction(session, test_id, data, actor=user)
-    return _read(session, new.id or 0, user)
+    new = lab_tests.request_correction(session, test_id, data, actor=user)
+    return lab_tests.read_test(session, new.id or 0, actor=user)
 
 
 @router.get("/tests/{test_id}/recompute", response_model=RecomputeRead, responses=_ERRORS)
 def recompute(test_id: int, session: SessionDep, user: CurrentUser) -> RecomputeRead:
     """Reduce the stored entries again with the current engine: does it match the stored
     result and input hash?"""
-    return service.recompute(session, test_id, actor=user)
+    return lab_tests.recompute(session, test_id, actor=user)

@@ -1,8 +1,9 @@
 """Server-rendered SVG plots (no JavaScript): ln(head) against time, k per trial, k against depth.
 
-Pure functions returning SVG text; nothing here knows about the web, the database or the
-engine. Every plot has labelled axes with units and a <title>/<desc> for screen readers, and
-series are told apart by marker shape as well as colour.
+Pure functions returning SVG text; nothing here reads the database. The fitted line of
+ln(head) against time is the engine's own regression (through the lab-tests door). Every
+plot has labelled axes with units and a <title>/<desc> for screen readers, and series are
+told apart by marker shape as well as colour.
 """
 
 from __future__ import annotations
@@ -11,6 +12,8 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from html import escape
+
+from service.lab_tests.reduction import fit_log_head
 
 INK = "#1b2a2f"
 MUTED = "#4b5a60"
@@ -264,18 +267,6 @@ def _time_unit(t_max_s: float) -> tuple[str, float]:
     return "h", 3600.0
 
 
-def fit_ln_head(times_s: Sequence[float], heads_m: Sequence[float]) -> tuple[float, float]:
-    """Least-squares line ln(h/m) = intercept + slope·t; returns (slope [1/s], intercept)."""
-    n = len(times_s)
-    ys = [math.log(h) for h in heads_m]
-    mean_t = sum(times_s) / n
-    mean_y = sum(ys) / n
-    sxx = sum((t - mean_t) ** 2 for t in times_s)
-    sxy = sum((t - mean_t) * (y - mean_y) for t, y in zip(times_s, ys, strict=True))
-    slope = sxy / sxx if sxx else 0.0
-    return slope, mean_y - slope * mean_t
-
-
 def ln_head_time_svg(
     times_s: Sequence[float],
     heads_m: Sequence[float],
@@ -296,7 +287,10 @@ def ln_head_time_svg(
         raise ValueError("ln_head_time_svg needs two or more (time, head) readings")
     if any(h <= 0 for h in heads_m):
         raise ValueError("heads must be greater than zero to take their logarithm")
-    slope, intercept = fit if fit is not None else fit_ln_head(times_s, heads_m)
+    if fit is None:
+        line = fit_log_head(times_s, heads_m)  # the engine's own fit of ln h on t
+        fit = (line.slope, line.intercept)
+    slope, intercept = fit
     unit, per = _time_unit(max(times_s))
     left, top = MARGIN_LEFT, MARGIN_TOP
     right, bottom = WIDTH - MARGIN_RIGHT, HEIGHT - MARGIN_BOTTOM
