@@ -68,6 +68,6 @@ def test_a_weak_new_password_is_refused_through_the_api(
         headers=bearer(session, technician),
     )
     assert response.status_code == 422
-    (problem,) = response.json()["detail"]
+    (problem,) = response.json()["errors"]
     assert problem["loc"] == ["body", "new_password"]
     assert "your own name or email" in problem["msg"]

@@ -106,7 +106,7 @@ def test_a_control_character_in_a_schedule_is_refused_naming_the_cell(
             client, bearer(session, world.manager), world.project.id, schedule, save=save
         )
         assert status == 422, body
-        (problem,) = body["detail"]
+        (problem,) = body["errors"]
         assert "row 2, column 4" in problem["msg"]
         assert "U+000B" in problem["msg"]
     assert sample_count(session) == before
@@ -123,7 +123,7 @@ def test_control_characters_are_refused_in_every_stored_text(
         headers={**bearer(session, world.manager), "Idempotency-Key": "hostile-1"},
     )
     assert response.status_code == 422, response.text
-    (problem,) = response.json()["detail"]
+    (problem,) = response.json()["errors"]
     assert problem["loc"][-1] == "description"
     assert "U+000C" in problem["msg"]
 
@@ -221,7 +221,7 @@ def test_a_decompression_bomb_is_refused_before_it_is_inflated(
         lambda: post_schedule(client, headers, world.project.id, bomb, filename="s.xlsx"),
     )
     assert status == 422, body
-    (problem,) = body["detail"]
+    (problem,) = body["errors"]
     assert "would expand" in problem["msg"]
     assert "accepted: a workbook of at most 32.0 MiB uncompressed" in problem["msg"]
     assert elapsed < 2.0  # measured about 0.03 s; inflating it took 10 s in the attack run
@@ -275,4 +275,4 @@ def test_workbook_limits_are_refused_naming_the_limit(
         client, bearer(session, world.manager), world.project.id, out.getvalue(), filename="s.xlsx"
     )
     assert status == 422, body
-    assert words in body["detail"][0]["msg"]
+    assert words in body["errors"][0]["msg"]

@@ -44,10 +44,13 @@ def main() -> None:
     # that a write of this session could no longer upgrade (SQLite WAL).
     app = create_app()
     with TestClient(app) as client, Session(get_engine(), expire_on_commit=False) as session:
-        schema = client.get("/openapi.json").json()["components"]["schemas"]
-        report["schema"] = schema["TrialEntries"]["properties"].get("tail_level")
         lab = make_organisation(session, kind="lab")
         technician = make_user(session, role=Role.TECHNICIAN, organisation=lab)
+        session.commit()
+        # The OpenAPI document is for signed-in callers (service/api/openapi.py).
+        served = client.get("/openapi.json", headers=bearer(session, technician))
+        schema = served.json()["components"]["schemas"]
+        report["schema"] = schema["TrialEntries"]["properties"].get("tail_level")
         manager = make_user(session, role=Role.LAB_MANAGER, organisation=lab)
         project = make_project(session)
         sample = make_sample(session, project=project)

@@ -348,7 +348,7 @@ def test_an_implausible_magnitude_is_refused_not_stored(lab: Lab) -> None:
     record_specimen(lab, test_id)
     huge = post_trial(lab, test_id, {**CV2_TRIAL, "head_initial": "1e308 m"}, "huge-1")
     assert huge.status_code == 422
-    assert huge.json()["detail"][0]["loc"] == ["body", "head_initial"]
+    assert huge.json()["errors"][0]["loc"] == ["body", "head_initial"]
     assert lab.session.exec(select(Trial)).all() == []
     assert (
         lab.client.get(f"/api/v1/tests/{test_id}", headers=lab.as_(lab.technician)).status_code
