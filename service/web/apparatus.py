@@ -12,6 +12,7 @@ from urllib.parse import urlencode
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
 from sqlmodel import Session
+from starlette.datastructures import FormData
 
 from service.accounts.models import User
 from service.apparatus.models import Apparatus
@@ -29,7 +30,7 @@ from service.common import ApparatusKind
 from service.db import utcnow
 from service.deps import SessionDep
 from service.errors import PermissionDenied
-from service.web.htmx import htmx_details, redirect, render
+from service.web.htmx import PostedForm, htmx_details, redirect, render
 from service.web.pages import layout_context
 from service.web.queue import StaffUser
 from service.web.refusals import Attempt, attempt, simple_name
@@ -209,8 +210,7 @@ def edit_item(
     return _form_response(request, user, _form_of(item), item)
 
 
-async def _read_form(request: Request) -> ItemForm:
-    posted = await request.form()
+def _read_form(posted: FormData) -> ItemForm:
     values = {
         name: str(posted.get(name, "")).strip()
         for name in (*TEXT_FIELDS, *DATE_FIELDS, "kind", "version")
@@ -267,10 +267,10 @@ def _refused(
 
 
 @router.post("")
-async def create(request: Request, session: SessionDep, user: StaffUser) -> Response:
+def create(request: Request, session: SessionDep, user: StaffUser, posted: PostedForm) -> Response:
     """Add an item to the register; refusals come back beside their fields, all typed kept."""
     _require_editor(user)
-    form = await _read_form(request)
+    form = _read_form(posted)
     dates = _dates(form)
     if form.errors:
         return _refused(request, session, user, form, None, 422)
@@ -291,13 +291,17 @@ async def create(request: Request, session: SessionDep, user: StaffUser) -> Resp
 
 
 @router.post("/{apparatus_id}")
-async def update(
-    request: Request, session: SessionDep, user: StaffUser, apparatus_id: int
+def update(
+    request: Request,
+    session: SessionDep,
+    user: StaffUser,
+    apparatus_id: int,
+    posted: PostedForm,
 ) -> Response:
     """Edit an item against the version read (409 with both versions if it changed since)."""
     _require_editor(user)
     item = get_apparatus(session, apparatus_id)
-    form = await _read_form(request)
+    form = _read_form(posted)
     form.values["kind"] = item.kind  # the kind of an item does not change
     dates = _dates(form)
     version = form.value("version")

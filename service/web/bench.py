@@ -23,7 +23,7 @@ from service.web.entries import (
     section_form,
     trial_form,
 )
-from service.web.htmx import htmx_details, render
+from service.web.htmx import PostedForm, htmx_details, render
 from service.web.pages import layout_context
 from service.web.plots import k_per_trial_svg
 from service.web.refusals import beside
@@ -235,11 +235,10 @@ def bench_page(request: Request, user: LabStaff) -> Response:
 
 
 @router.post("/preview")
-async def bench_preview(request: Request, user: LabStaff) -> Response:
+def bench_preview(request: Request, user: LabStaff, form: PostedForm) -> Response:
     """Reduce the typed entries. htmx gets the result fragment (field messages out of band),
     or the whole bench when the form itself changes (method, trial rows); a browser without
     JavaScript gets the whole page. Refused entries answer 422 with everything typed kept."""
-    form = await request.form()
     bench = read_form(form)
     outcome = run_bench(bench)
     context = _context(request, user, bench, outcome)

@@ -18,11 +18,25 @@ from typing import Annotated, Any
 from fastapi import Depends, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
+from starlette.datastructures import FormData
 
 from service import __version__
 from service.config import get_settings
 from service.db import PROJECT_ROOT
 from service.web.display import install as install_display_filters
+
+
+async def posted_form(request: Request) -> FormData:
+    """Read the posted form on the event loop, before the route runs.
+
+    A page route that takes ``PostedForm`` can then be a plain ``def``: FastAPI runs it in the
+    thread pool, so its database work never blocks the event loop. (An ``async def`` route
+    that waited on a row lock held by another request froze the whole server on PostgreSQL.)
+    """
+    return await request.form()
+
+
+PostedForm = Annotated[FormData, Depends(posted_form)]
 
 HTMX_VERSION = "4.0.1"
 HTMX_SCRIPT = f"/static/vendor/htmx-{HTMX_VERSION}.min.js"

@@ -17,6 +17,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
 from sqlmodel import Session
+from starlette.datastructures import FormData
 
 from service.accounts.models import User
 from service.accounts.service import names_of
@@ -46,7 +47,7 @@ from service.web.entries import (
     takes_readings,
     trial_form,
 )
-from service.web.htmx import htmx_details, redirect, render
+from service.web.htmx import PostedForm, htmx_details, redirect, render
 from service.web.pages import layout_context
 from service.web.refusals import Attempt, attempt, beside, form_errors, prefixed
 
@@ -407,11 +408,10 @@ def _specimen_fields(form: Mapping[str, Any]) -> dict[str, Any]:
 
 
 @router.post("/{test_id}/specimen")
-async def save_specimen(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def save_specimen(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Record or change the specimen against the version read; 409 shows both versions."""
-    form = await request.form()
     forms = Forms(values=_form_values(form, "specimen"))
     forms.values["specimen.stiff_material"] = form.get("specimen.stiff_material") == "on"
     with attempt(session) as tried:
@@ -471,11 +471,10 @@ def permeameter_geometry(
 
 
 @router.post("/{test_id}/apparatus")
-async def save_apparatus(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def save_apparatus(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Assign the chosen register items (other kinds already assigned are kept)."""
-    form = await request.form()
     forms = Forms(values=_form_values(form, "app"))
     record = lab_tests.load_record(session, test_id, actor=user)
     kept = [a.id for a in record.apparatus if a.kind not in PICKED_KINDS and a.id is not None]
@@ -499,11 +498,10 @@ async def save_apparatus(
 
 
 @router.post("/{test_id}/conditions")
-async def save_conditions(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def save_conditions(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Cell, back and effective pressures and the permeant, each kept as typed."""
-    form = await request.form()
     forms = Forms(values=_form_values(form, "cond"))
     fields: dict[str, Any] = {
         name: str(form.get(f"cond.{name}", "")).strip() or None for name in PRESSURES
@@ -518,11 +516,10 @@ async def save_conditions(
 
 
 @router.post("/{test_id}/saturation")
-async def add_saturation(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def add_saturation(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Append a back-pressure step and the B-value measured after it."""
-    form = await request.form()
     forms = Forms(values=_form_values(form, "sat"))
     fields = {
         "back_pressure": str(form.get("sat.back_pressure", "")).strip(),
@@ -548,13 +545,12 @@ def _test_method(session: Session, test_id: int, user: User) -> str:
 
 
 @router.post("/{test_id}/trials/preview")
-async def preview_trial(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def preview_trial(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """k, k20, gradient and every check with the trial being typed; nothing is stored.
     htmx gets the result (messages beside the trial's fields out of band); 422 when an
     entry is refused."""
-    form = await request.form()
     typed, entries = typed_trial(form, _test_method(session, test_id, user))
     forms = Forms(values={**typed, "trial.idempotency_key": str(form.get("idempotency_key", ""))})
     context = _context(
@@ -567,12 +563,11 @@ async def preview_trial(
 
 
 @router.post("/{test_id}/trials")
-async def save_trial(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def save_trial(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Record the typed trial once: the hidden Idempotency-Key of this form makes a
     double tap or a retry store one trial."""
-    form = await request.form()
     typed, entries = typed_trial(form, _test_method(session, test_id, user))
     key = str(form.get("idempotency_key", ""))
     forms = Forms(values={**typed, "trial.idempotency_key": key})
@@ -595,23 +590,34 @@ async def save_trial(
 
 
 @router.post("/{test_id}/trials/{trial_id}/exclude")
-async def exclude_trial(
-    request: Request, test_id: int, trial_id: int, user: CurrentUser, session: SessionDep
+def exclude_trial(
+    request: Request,
+    test_id: int,
+    trial_id: int,
+    user: CurrentUser,
+    session: SessionDep,
+    posted: PostedForm,
 ) -> Response:
     """Leave a saved trial out of the reduction, with the reason."""
-    return await _set_excluded(request, test_id, trial_id, user, session, excluded=True)
+    return _set_excluded(request, posted, test_id, trial_id, user, session, excluded=True)
 
 
 @router.post("/{test_id}/trials/{trial_id}/include")
-async def include_trial(
-    request: Request, test_id: int, trial_id: int, user: CurrentUser, session: SessionDep
+def include_trial(
+    request: Request,
+    test_id: int,
+    trial_id: int,
+    user: CurrentUser,
+    session: SessionDep,
+    posted: PostedForm,
 ) -> Response:
     """Take an excluded trial back into the reduction."""
-    return await _set_excluded(request, test_id, trial_id, user, session, excluded=False)
+    return _set_excluded(request, posted, test_id, trial_id, user, session, excluded=False)
 
 
-async def _set_excluded(
+def _set_excluded(
     request: Request,
+    form: FormData,
     test_id: int,
     trial_id: int,
     user: User,
@@ -619,7 +625,6 @@ async def _set_excluded(
     *,
     excluded: bool,
 ) -> Response:
-    form = await request.form()
     prefix = f"exclude.{trial_id}"
     forms = Forms(values=_form_values(form, prefix))
     reason = str(form.get(f"{prefix}.reason", ""))
@@ -655,12 +660,11 @@ def _submit_refusal(tried: Attempt, forms: Forms) -> None:
 
 
 @router.post("/{test_id}/submit")
-async def submit(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep
+def submit(
+    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """Submit with the technician's sign-off (password asked again). A wrong password or an
     apparatus past its calibration date changes nothing and says so in the form."""
-    form = await request.form()
     forms = Forms(values={"submit.note": str(form.get("submit.note", ""))})
     version = _int_or_none(form.get("version", ""))
     with attempt(session) as tried:

@@ -29,7 +29,7 @@ from service.projects.service import (
     may_manage_projects,
 )
 from service.samples.service import list_samples, may_receive
-from service.web.htmx import redirect, render
+from service.web.htmx import PostedForm, redirect, render
 from service.web.pages import layout_context
 from service.web.reception import with_unit
 from service.web.refusals import attempt, simple_name
@@ -107,10 +107,11 @@ def projects_page(
 
 
 @router.post("")
-async def project_create(request: Request, user: Manager, session: SessionDep) -> Response:
+def project_create(
+    request: Request, user: Manager, session: SessionDep, posted: PostedForm
+) -> Response:
     """Open a project (lab managers); the browser then goes to its page. A refusal answers
     with the form, each message beside its field and everything typed kept."""
-    posted = await request.form()
     values = {name: str(posted.get(name, "")) for name in PROJECT_FIELDS}
     payload: dict[str, Any] = {k: v.strip() for k, v in values.items() if v.strip()}
     with attempt(session) as tried:
@@ -212,12 +213,11 @@ def project_page(
 
 
 @router.post("/{project_id}/locations")
-async def location_create(
-    project_id: int, request: Request, user: Manager, session: SessionDep
+def location_create(
+    project_id: int, request: Request, user: Manager, session: SessionDep, posted: PostedForm
 ) -> Response:
     """Add a location (lab managers). htmx gets the locations section back; a refusal keeps
     everything typed with the message beside its field."""
-    posted = await request.form()
     values = {name: str(posted.get(name, "")) for name in LOCATION_FIELDS}
     payload: dict[str, Any] = {
         k: v.strip()

@@ -34,7 +34,7 @@ from service.queue import (
     technician_load,
 )
 from service.samples.models import Sample
-from service.web.htmx import htmx_details, redirect, render, safe_next
+from service.web.htmx import PostedForm, htmx_details, redirect, render, safe_next
 from service.web.pages import layout_context
 from service.web.refusals import attempt
 
@@ -434,11 +434,12 @@ def _assign_answer(
 
 
 @router.post("/tests/{test_id}/assign")
-async def assign(request: Request, session: SessionDep, user: StaffUser, test_id: int) -> Response:
+def assign(
+    request: Request, session: SessionDep, user: StaffUser, test_id: int, posted: PostedForm
+) -> Response:
     """Set the technician and apparatus through the lifecycle's update_test (with the version
     read): refused entries come back beside their fields, a stale version with both sides."""
     _require_assigner(user)
-    posted = await request.form()
     form = AssignForm(
         technician_id=str(posted.get("technician_id", "")),
         apparatus_ids=[str(v) for v in posted.getlist("apparatus_ids")],

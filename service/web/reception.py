@@ -13,7 +13,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Query, Request
+from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import Response
 from pydantic import ValidationError
 from sqlmodel import Session
@@ -476,10 +476,18 @@ def reception_page(
     return _answer(request, _context(request, session, user, form), Outcome(), 200)
 
 
-@router.post("")
-async def reception_submit(request: Request, user: Reception, session: SessionDep) -> Response:
-    """Check, add a row, or save. A refusal answers 422 with everything typed kept and each
-    message beside its field (or its schedule cell); a save answers 201 with the lab IDs."""
+@dataclass
+class ReceptionPost:
+    """A posted reception form, with its schedule file already read and parsed."""
+
+    form: ReceptionForm
+    action: str
+    file_error: str
+
+
+async def reception_post(request: Request) -> ReceptionPost:
+    """Read the posted form on the event loop and parse an uploaded schedule in a worker
+    thread, so that the route itself runs in the thread pool (PostedForm in web/htmx.py)."""
     async with request.form() as posted:
         form = read_form(posted)
         action = str(posted.get("action", "check"))
@@ -502,6 +510,19 @@ async def reception_submit(request: Request, user: Reception, session: SessionDe
             except (InvalidInput, FileTooLarge) as exc:
                 problems = exc.problems if isinstance(exc, InvalidInput) else ()
                 file_error = "; ".join(beside(p) for p in problems) or exc.message
+    return ReceptionPost(form, action, file_error)
+
+
+@router.post("")
+def reception_submit(
+    request: Request,
+    user: Reception,
+    session: SessionDep,
+    posted: Annotated[ReceptionPost, Depends(reception_post)],
+) -> Response:
+    """Check, add a row, or save. A refusal answers 422 with everything typed kept and each
+    message beside its field (or its schedule cell); a save answers 201 with the lab IDs."""
+    form, action, file_error = posted.form, posted.action, posted.file_error
     if form.project_id is None:
         outcome = Outcome(general=["Choose the project the samples arrived for."])
         return _answer(request, _context(request, session, user, form), outcome)

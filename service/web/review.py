@@ -11,6 +11,7 @@ from typing import Any
 from fastapi import APIRouter, Request
 from fastapi.responses import Response
 from sqlmodel import Session
+from starlette.datastructures import FormData
 
 from service.accounts.models import Organisation, User
 from service.accounts.service import names_of
@@ -26,7 +27,7 @@ from service.projects.models import Project
 from service.samples.models import Sample
 from service.signoffs.service import performer_ids
 from service.web.entries import trial_entries_text
-from service.web.htmx import redirect, render
+from service.web.htmx import PostedForm, redirect, render
 from service.web.pages import layout_context
 from service.web.plots import k_per_trial_svg, ln_head_time_svg
 from service.web.queue import METHOD_WORDS, StaffUser
@@ -302,8 +303,7 @@ def _refused(
     )
 
 
-async def _posted(request: Request, which: str, names: tuple[str, ...]) -> ActionForms:
-    form = await request.form()
+def _posted(form: FormData, which: str, names: tuple[str, ...]) -> ActionForms:
     values = {name: str(form.get(name, "")) for name in names}
     return ActionForms(which=which, values=values)
 
@@ -313,9 +313,11 @@ def _version(forms: ActionForms) -> int | None:
 
 
 @router.post("/tests/{test_id}/review/approve")
-async def approve(request: Request, session: SessionDep, user: StaffUser, test_id: int) -> Response:
+def approve(
+    request: Request, session: SessionDep, user: StaffUser, test_id: int, posted: PostedForm
+) -> Response:
     """Approve with the reviewer's password re-entered (a signature) against the version read."""
-    forms = await _posted(request, "approve", ("password", "note", "version"))
+    forms = _posted(posted, "approve", ("password", "note", "version"))
     password = forms.values["password"]
     forms.values["password"] = ""  # a password is never sent back into the page
     if not password:
@@ -334,11 +336,11 @@ async def approve(request: Request, session: SessionDep, user: StaffUser, test_i
 
 
 @router.post("/tests/{test_id}/review/send-back")
-async def send_back(
-    request: Request, session: SessionDep, user: StaffUser, test_id: int
+def send_back(
+    request: Request, session: SessionDep, user: StaffUser, test_id: int, posted: PostedForm
 ) -> Response:
     """Send a submitted test back to its technician; the reason is required and kept."""
-    forms = await _posted(request, "send_back", ("reason", "version"))
+    forms = _posted(posted, "send_back", ("reason", "version"))
     with attempt(session, catch=(ServiceError,)) as tried:
         data = SendBackRequest(reason=forms.values["reason"], version=_version(forms))
         lab_tests.send_back(session, test_id, data, actor=user)
@@ -348,9 +350,11 @@ async def send_back(
 
 
 @router.post("/tests/{test_id}/review/issue")
-async def issue(request: Request, session: SessionDep, user: StaffUser, test_id: int) -> Response:
+def issue(
+    request: Request, session: SessionDep, user: StaffUser, test_id: int, posted: PostedForm
+) -> Response:
     """Issue the certificate of the test's sample (every approved test on it is reported)."""
-    forms = await _posted(request, "issue", ())
+    forms = _posted(posted, "issue", ())
     with attempt(session, catch=(ServiceError,)) as tried:
         test = lab_tests.get_test(session, test_id, actor=user)
         certificate = issue_sample_certificate(session, test.sample_id, actor=user)
@@ -360,11 +364,11 @@ async def issue(request: Request, session: SessionDep, user: StaffUser, test_id:
 
 
 @router.post("/tests/{test_id}/review/correction")
-async def correction(
-    request: Request, session: SessionDep, user: StaffUser, test_id: int
+def correction(
+    request: Request, session: SessionDep, user: StaffUser, test_id: int, posted: PostedForm
 ) -> Response:
     """Order a correction of an approved or issued test: a new revision, with the reason."""
-    forms = await _posted(request, "correction", ("reason",))
+    forms = _posted(posted, "correction", ("reason",))
     with attempt(session, catch=(ServiceError,)) as tried:
         data = CorrectionRequest(reason=forms.values["reason"])
         new = lab_tests.request_correction(session, test_id, data, actor=user)

@@ -27,7 +27,7 @@ from service.projects.service import get_project
 from service.samples.models import Sample
 from service.samples.service import get_sample
 from service.web.entries import METHOD_CHOICES, STANDARD_CHOICES
-from service.web.htmx import render
+from service.web.htmx import PostedForm, render
 from service.web.pages import layout_context
 from service.web.refusals import Attempt, attempt, simple_name
 
@@ -197,12 +197,12 @@ def _posted(form: Mapping[str, Any], names: Iterable[str]) -> dict[str, str]:
 
 
 @router.post("/{sample_id}/custody")
-async def custody_submit(
-    sample_id: int, request: Request, user: LabStaff, session: SessionDep
+def custody_submit(
+    sample_id: int, request: Request, user: LabStaff, session: SessionDep, posted: PostedForm
 ) -> Response:
     """Record a custody event. htmx gets the custody section back; a refusal is 422 with the
     message beside the field and everything typed kept."""
-    values = _posted(await request.form(), CUSTODY_FIELDS)
+    values = _posted(posted, CUSTODY_FIELDS)
     payload = {name: value.strip() for name, value in values.items()}
     with attempt(session, catch=(InvalidInput,)) as tried:
         add_custody_event(session, sample_id, CustodyEventIn.model_validate(payload), actor=user)
@@ -236,14 +236,18 @@ def _section(
 
 
 @router.post("/{sample_id}/tests")
-async def test_request_submit(
-    sample_id: int, request: Request, user: CurrentUser, session: SessionDep
+def test_request_submit(
+    sample_id: int,
+    request: Request,
+    user: CurrentUser,
+    session: SessionDep,
+    posted: PostedForm,
 ) -> Response:
     """Request a permeability test (lab managers, reviewers, admins); the project's specification
     limit applies. htmx gets the tests section back; a refusal keeps what was chosen."""
     if not lab_tests.may_request_tests(user):
         raise PermissionDenied("requesting a test needs a lab manager, a reviewer or an admin")
-    values = _posted(await request.form(), TEST_FIELDS)
+    values = _posted(posted, TEST_FIELDS)
     payload: dict[str, Any] = {"method": values["method"].strip()}
     if values["standard"].strip():
         payload["standard"] = values["standard"].strip()
