@@ -15,6 +15,7 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.projects.models import Location, Project
+from service.queue_keys import install as install_queue_keys
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
 from service.stored_text import install as install_stored_text_check
@@ -45,3 +46,4 @@ __all__ = [
 ]
 
 install_stored_text_check()
+install_queue_keys()

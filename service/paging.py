@@ -3,12 +3,17 @@ helpers that fill it."""
 
 from __future__ import annotations
 
+import base64
+import binascii
+import json
 from collections.abc import Callable, Sequence
 from typing import Any, Generic, TypeVar
 
-from pydantic import BaseModel
+from pydantic import BaseModel, Field
 from sqlmodel import Session, func, select
 from sqlmodel.sql.expression import SelectOfScalar
+
+from service.errors import invalid
 
 ItemT = TypeVar("ItemT")
 RowT = TypeVar("RowT")
@@ -24,6 +29,11 @@ class Page(BaseModel, Generic[ItemT]):
     total: int
     limit: int
     offset: int
+    next_after: str | None = Field(
+        default=None,
+        description="where a keyset-paged list goes on: send it back as `after` for the next "
+        "page (null on the last page, and on lists paged by offset only)",
+    )
 
 
 def count_of(session: Session, query: SelectOfScalar[Any]) -> int:
@@ -46,3 +56,30 @@ def page_of(
 ) -> Page[ItemT]:
     """A `Page` of `rows` turned into their response models by `read`."""
     return Page[ItemT](items=[read(row) for row in rows], total=total, limit=limit, offset=offset)
+
+
+def encode_after(values: Sequence[Any]) -> str:
+    """A keyset position (the sort key of a page's last row) as an opaque, URL-safe text."""
+    raw = json.dumps(list(values), separators=(",", ":")).encode()
+    return base64.urlsafe_b64encode(raw).decode().rstrip("=")
+
+
+def decode_after(text: str, size: int) -> list[Any]:
+    """The keyset position `encode_after` gave, or a 422 naming the `after` parameter."""
+    try:
+        values = json.loads(base64.urlsafe_b64decode(text + "=" * (-len(text) % 4)))
+    except (binascii.Error, ValueError, UnicodeDecodeError):
+        values = None
+    if (
+        not isinstance(values, list)
+        or len(values) != size
+        or not all(isinstance(v, int | str) and not isinstance(v, bool) for v in values)
+    ):
+        raise invalid(
+            ("query", "after"),
+            "is not a position this list gave",
+            value=text,
+            accepted="the `next_after` of the page before, unchanged",
+            label="after",
+        )
+    return values

@@ -28,6 +28,7 @@ from fastapi.testclient import TestClient  # noqa: E402
 from sqlmodel import Session, SQLModel  # noqa: E402
 
 import service.models  # noqa: E402, F401
+from service import queue  # noqa: E402
 from service.config import get_settings  # noqa: E402
 from service.db import get_engine  # noqa: E402
 
@@ -94,6 +95,7 @@ def engine(migrated_engine: sa.Engine) -> Iterator[sa.Engine]:
     """The app's engine on a migrated database, emptied again after the test."""
     yield migrated_engine
     empty_all_tables(migrated_engine)
+    queue.forget()  # the queue's figures kept a few seconds are of the tables just emptied
 
 
 @pytest.fixture
