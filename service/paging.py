@@ -70,16 +70,26 @@ def decode_after(text: str, size: int) -> list[Any]:
         values = json.loads(base64.urlsafe_b64decode(text + "=" * (-len(text) % 4)))
     except (binascii.Error, ValueError, UnicodeDecodeError):
         values = None
-    if (
-        not isinstance(values, list)
-        or len(values) != size
-        or not all(isinstance(v, int | str) and not isinstance(v, bool) for v in values)
-    ):
-        raise invalid(
-            ("query", "after"),
-            "is not a position this list gave",
-            value=text,
-            accepted="the `next_after` of the page before, unchanged",
-            label="after",
-        )
+    if not isinstance(values, list) or len(values) != size or not all(map(_usable, values)):
+        raise refused_position(text)
     return values
+
+
+def _usable(value: Any) -> bool:
+    """A keyset value a database takes: a short text or an integer within 64 bits."""
+    if isinstance(value, bool):
+        return False
+    if isinstance(value, int):
+        return abs(value) < 2**62
+    return isinstance(value, str) and len(value) <= 40
+
+
+def refused_position(text: str) -> Exception:
+    """The 422 of an `after` the list did not give."""
+    return invalid(
+        ("query", "after"),
+        "is not a position this list gave",
+        value=text,
+        accepted="the `next_after` of the page before, unchanged",
+        label="after",
+    )

@@ -25,7 +25,7 @@ from service.accounts.models import Organisation, User
 from service.common import NO_DUE_DATE, OPEN_STATES, TestState
 from service.db import utcnow
 from service.lab_tests.models import PermeabilityTest
-from service.paging import Page, count_of, decode_after, encode_after
+from service.paging import Page, count_of, decode_after, encode_after, refused_position
 from service.projects.models import Project
 from service.samples.models import Sample
 
@@ -274,10 +274,18 @@ def _key_of(sort: str, item: QueueTest, rank: int, due: date) -> list[Any]:
     return [due.isoformat(), rank, item.test_id]
 
 
-def _after(sort: str, values: list[Any]) -> sa.ColumnElement[bool]:
-    """Rows strictly after the keyset `values` (dates sent as ISO text)."""
-    typed = [date.fromisoformat(v) if isinstance(v, str) else v for v in values]
-    return sa.tuple_(*_order(sort)) > sa.tuple_(*typed)
+def _after(sort: str, after: str) -> sa.ColumnElement[bool]:
+    """Rows strictly after the keyset position `after` (its dates sent as ISO text)."""
+    values = decode_after(after, len(_order(sort)))
+    due_at = 0 if sort == "due" else 1
+    try:
+        due = date.fromisoformat(values[due_at])
+    except (TypeError, ValueError):
+        raise refused_position(after) from None
+    if any(isinstance(v, str) for i, v in enumerate(values) if i != due_at):
+        raise refused_position(after)
+    values[due_at] = due
+    return sa.tuple_(*_order(sort)) > sa.tuple_(*values)
 
 
 def queue_tests(
@@ -303,7 +311,7 @@ def queue_tests(
     total = count_of(session, _filtered(select(PermeabilityTest.id), filters))
     chosen = _filtered(select(PermeabilityTest.id), filters).order_by(*_order(sort)).limit(limit)
     if after is not None:
-        chosen = chosen.where(_after(sort, decode_after(after, len(_order(sort)))))
+        chosen = chosen.where(_after(sort, after))
     elif offset:
         chosen = chosen.offset(offset)
     page_ids: list[int] = list(session.exec(chosen).all())
