@@ -75,6 +75,7 @@ __all__ = [
     "label",
     "label_of",
     "reduce_payload",
+    "reduce_request",
     "reduce_stored",
     "stored_request",
     "trial_notes",
@@ -462,6 +463,22 @@ def reduce_stored(
     keys = [t.id if t.id is not None else UNSAVED for t in stored.included]
     numbers = [t.seq for t in stored.included]
     return _reduced(stored.request, stored.defaults, keys, numbers)
+
+
+def reduce_request(
+    stored: StoredRequest, *, unsaved: Mapping[str, Any] | None = None, number: int = 0
+) -> Reduction:
+    """Reduce a stored test's request (`stored_request`), with the entries of one unsaved
+    trial added last under the key ``"new"`` and the number `number` (the live preview);
+    reads nothing, stores nothing, changes nothing in `stored`."""
+    trials = list(stored.request["trials"])
+    keys: list[Any] = [t.id for t in stored.included]
+    numbers = [t.seq for t in stored.included]
+    if unsaved:
+        trials.append(dict(unsaved))
+        keys.append(UNSAVED)
+        numbers.append(number)
+    return _reduced({**stored.request, "trials": trials}, stored.defaults, keys, numbers)
 
 
 def check_trial(test: PermeabilityTest, entries: Mapping[str, Any], number: int) -> Reduction:

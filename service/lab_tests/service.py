@@ -28,6 +28,7 @@ from service.lab_tests.permissions import (
     may_request_tests,
     may_review,
 )
+from service.lab_tests.preview import PreviewInputs, preview_inputs
 from service.lab_tests.reading import (
     TestRecord,
     apparatus_of,
@@ -57,6 +58,7 @@ from service.lab_tests.recording import (
 __all__ = [
     "EDITABLE",
     "Action",
+    "PreviewInputs",
     "TestRecord",
     "add_saturation_step",
     "allowed_actions",
@@ -73,6 +75,7 @@ __all__ = [
     "may_assign",
     "may_request_tests",
     "may_review",
+    "preview_inputs",
     "read_test",
     "readings_of",
     "recompute",
