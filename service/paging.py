@@ -29,10 +29,15 @@ class Page(BaseModel, Generic[ItemT]):
     total: int
     limit: int
     offset: int
+
+
+class KeysetPage(Page[ItemT], Generic[ItemT]):
+    """A page of a list that can also be paged by keyset: `next_after` goes on from it."""
+
     next_after: str | None = Field(
         default=None,
-        description="where a keyset-paged list goes on: send it back as `after` for the next "
-        "page (null on the last page, and on lists paged by offset only)",
+        description="send it back as `after` for the next page, which then costs the same "
+        "as the first (null on the last page)",
     )
 
 

@@ -25,7 +25,7 @@ from service.accounts.models import Organisation, User
 from service.common import NO_DUE_DATE, OPEN_STATES, TestState
 from service.db import utcnow
 from service.lab_tests.models import PermeabilityTest
-from service.paging import Page, count_of, decode_after, encode_after, refused_position
+from service.paging import KeysetPage, count_of, decode_after, encode_after, refused_position
 from service.projects.models import Project
 from service.samples.models import Sample
 
@@ -131,7 +131,7 @@ class QueueView(BaseModel):
     counts: dict[str, int] = Field(description="tests per state (the state filter not applied)")
     overdue: int = Field(description="open tests past their due date")
     load: list[TechnicianLoad]
-    tests: Page[QueueTest]
+    tests: KeysetPage[QueueTest]
 
 
 def _open() -> sa.ColumnElement[bool]:
@@ -296,7 +296,7 @@ def queue_tests(
     offset: int = 0,
     sort: str = "due",
     after: str | None = None,
-) -> Page[QueueTest]:
+) -> KeysetPage[QueueTest]:
     """The tests matching `filters` in the order of `sort` (one of SORTS: "due", the default,
     earliest due first with urgent first on the same day; "priority"; "state").
 
@@ -316,7 +316,7 @@ def queue_tests(
         chosen = chosen.offset(offset)
     page_ids: list[int] = list(session.exec(chosen).all())
     if not page_ids:
-        return Page[QueueTest](items=[], total=total, limit=limit, offset=offset)
+        return KeysetPage[QueueTest](items=[], total=total, limit=limit, offset=offset)
     # Sixteen columns: beyond sqlmodel's typed select(), so a plain SQLAlchemy select.
     columns: tuple[Any, ...] = (
         col(PermeabilityTest.id),
@@ -375,7 +375,7 @@ def queue_tests(
     next_after = (
         encode_after(_key_of(sort, last, *keys[last.test_id])) if len(items) == limit else None
     )
-    return Page[QueueTest](
+    return KeysetPage[QueueTest](
         items=items, total=total, limit=limit, offset=offset, next_after=next_after
     )
 

@@ -1,4 +1,5 @@
-"""The live preview of a trial being typed: one read, no write.
+"""A test's stored inputs read once: the live preview of a trial being typed (one read, no
+write), and a trial's reduction run before the write lock (service/lab_tests/recording.py).
 
 A test's stored inputs (its reduction request without the new trial, and the default
 uncertainties from its apparatus) are kept per process under a stamp that one statement
@@ -64,10 +65,11 @@ def _stamp_columns() -> list[Any]:
 
 @dataclass(frozen=True)
 class PreviewInputs:
-    """A test and its stored inputs, ready for a trial being typed."""
+    """A test, its stored inputs and their stamp, ready for a trial being typed."""
 
     test: PermeabilityTest
     stored: StoredRequest
+    stamp: tuple[Any, ...]
     next_seq: int
 
     def reduce(self, entries: Mapping[str, Any] | None) -> Reduction:
@@ -75,16 +77,35 @@ class PreviewInputs:
         return reduce_request(self.stored, unsaved=entries, number=self.next_seq)
 
 
-def preview_inputs(session: Session, test_id: int, *, actor: User) -> PreviewInputs:
-    """The test (404 unless `actor` may see it) and its stored inputs: one statement when
-    they are kept from an earlier preview and nothing changed since."""
-    row = session.execute(
-        sa.select(PermeabilityTest, *_stamp_columns()).where(col(PermeabilityTest.id) == test_id)
-    ).first()
-    if row is None or not can_see(session, actor, row[0]):
-        raise NotFound(f"test {test_id} not found")
+def _stamped(session: Session, test_id: int, *, lock: bool = False) -> Any:
+    """(the test, its stamp, the next trial number) in one statement, or None."""
+    query = sa.select(PermeabilityTest, *_stamp_columns()).where(
+        col(PermeabilityTest.id) == test_id
+    )
+    if lock:
+        query = query.with_for_update(of=PermeabilityTest).execution_options(populate_existing=True)
+    row = session.execute(query).first()
+    if row is None:
+        return None
     test: PermeabilityTest = row[0]
-    stamp = (test.version, test.state, *row[1:])
+    return test, (test.version, test.state, *row[1:]), int(row[3] or 0) + 1
+
+
+def stamp_of(session: Session, test_id: int) -> tuple[tuple[Any, ...], int]:
+    """The stamp of a test's stored inputs and its next trial number, as they stand."""
+    found = _stamped(session, test_id)
+    if found is None:
+        raise NotFound(f"test {test_id} not found")
+    return found[1], found[2]
+
+
+def inputs_of(session: Session, test_id: int) -> PreviewInputs | None:
+    """A test's inputs, whoever asks (None when there is no such test): one statement when
+    they are kept from before and nothing changed since. Callers check who may see them."""
+    found = _stamped(session, test_id)
+    if found is None:
+        return None
+    test, stamp, next_seq = found
     kept = _kept.get(test_id)
     if kept is not None and kept[0] == stamp:
         stored = kept[1]
@@ -94,8 +115,15 @@ def preview_inputs(session: Session, test_id: int, *, actor: User) -> PreviewInp
             if len(_kept) >= _KEPT_TESTS:
                 _kept.clear()
             _kept[test_id] = (stamp, stored)
-    highest_seq = row[3]
-    return PreviewInputs(test=test, stored=stored, next_seq=int(highest_seq or 0) + 1)
+    return PreviewInputs(test=test, stored=stored, stamp=stamp, next_seq=next_seq)
+
+
+def preview_inputs(session: Session, test_id: int, *, actor: User) -> PreviewInputs:
+    """The test's inputs (404 unless `actor` may see the test)."""
+    inputs = inputs_of(session, test_id)
+    if inputs is None or not can_see(session, actor, inputs.test):
+        raise NotFound(f"test {test_id} not found")
+    return inputs
 
 
 def forget() -> None:

@@ -47,9 +47,11 @@ from service.lab_tests.reading import (
     trials_of,
 )
 from service.lab_tests.recording import (
+    PreparedTrial,
     add_saturation_step,
     exclude_trial,
     live_reduction,
+    prepare_trial,
     record_trial,
     update_trial,
     write_specimen,
@@ -58,6 +60,7 @@ from service.lab_tests.recording import (
 __all__ = [
     "EDITABLE",
     "Action",
+    "PreparedTrial",
     "PreviewInputs",
     "TestRecord",
     "add_saturation_step",
@@ -75,6 +78,7 @@ __all__ = [
     "may_assign",
     "may_request_tests",
     "may_review",
+    "prepare_trial",
     "preview_inputs",
     "read_test",
     "readings_of",

@@ -372,7 +372,7 @@ def receive_samples_once(
         session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
     )
     if replay is not None:
-        return replay.status_code, dict(replay.response), True
+        return replay.status_code, dict(replay.response or {}), True
     samples = receive_samples(session, project_id, batch, actor=actor)
     answer = ReceivedBatch(
         project_id=project_id,
