@@ -16,6 +16,7 @@ from service.lab_tests.models import (
 )
 from service.projects.models import Location, Project
 from service.samples.models import Sample
+from service.series.models import CompactionCurvePoint, CompactionSeries, SeriesMember
 from service.signoffs.models import SignOff
 from service.stored_text import install as install_stored_text_check
 
@@ -27,6 +28,8 @@ __all__ = [
     "CertificateTest",
     "ChainHead",
     "Checkpoint",
+    "CompactionCurvePoint",
+    "CompactionSeries",
     "CustodyEvent",
     "IdempotencyRecord",
     "Location",
@@ -37,6 +40,7 @@ __all__ = [
     "Reading",
     "Sample",
     "SaturationStep",
+    "SeriesMember",
     "SignOff",
     "Specimen",
     "TestApparatus",
