@@ -559,6 +559,10 @@ class SeriesAnalysis:
     zero_air_voids, min_saturation_line, zone_saturation_line : tuple of SeriesPoint
         Lines of the compaction plane over the water contents drawn (the last two empty when
         there is no minimum saturation or no saturation bound).
+    zone_outline : tuple of SeriesPoint
+        The hull of the acceptable zone with each edge cut into steps and held at or below
+        the zero-air-voids line (docs/methods.md §14.7: plots clip the hull there); empty
+        when the hull has fewer than three corners.
     """
 
     classified: tuple[compaction.ClassifiedSpecimen, ...]
@@ -569,6 +573,27 @@ class SeriesAnalysis:
     zero_air_voids: tuple[compaction.CompactionPoint, ...]
     min_saturation_line: tuple[compaction.CompactionPoint, ...] = ()
     zone_saturation_line: tuple[compaction.CompactionPoint, ...] = ()
+    zone_outline: tuple[compaction.CompactionPoint, ...] = ()
+
+
+def _outline(
+    hull: Sequence[compaction.CompactionPoint], specific_gravity: float, steps: int = 12
+) -> tuple[compaction.CompactionPoint, ...]:
+    if len(hull) < 3:
+        return ()
+    out = []
+    for a, b in zip(hull, (*hull[1:], hull[0]), strict=True):
+        for j in range(steps):
+            t = j / steps
+            w = a.water_content + t * (b.water_content - a.water_content)
+            rho = a.dry_density_kg_per_m3 + t * (b.dry_density_kg_per_m3 - a.dry_density_kg_per_m3)
+            ceiling = compaction.saturation_line_dry_density(
+                w,
+                specific_gravity=specific_gravity,
+                water_density_kg_per_m3=SERIES_WATER_DENSITY_KG_PER_M3,
+            )
+            out.append(compaction.CompactionPoint(w, min(rho, ceiling)))
+    return tuple(out)
 
 
 def saturation_of(
@@ -657,4 +682,5 @@ def analyse_series(
         zero_air_voids=line(1.0),
         min_saturation_line=line(min_saturation),
         zone_saturation_line=line(zone.saturation_bound if zone else None),
+        zone_outline=_outline(zone.hull, specific_gravity) if zone else (),
     )
