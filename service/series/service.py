@@ -544,3 +544,12 @@ def series_json(results: SeriesResults) -> dict[str, Any]:
             "method": "Daniel & Benson (1990), J. Geotech. Eng. 116(12)",
         },
     }
+
+
+def project_series_json(session: Session, project_id: int, *, user: User) -> list[dict[str, Any]]:
+    """Every compaction series of a project as export.json carries it (`series`)."""
+    return [
+        series_json(series_results(session, s.id, user=user))
+        for s in project_series(session, project_id, user=user)
+        if s.id is not None
+    ]
