@@ -146,3 +146,48 @@ def test_the_project_page_links_to_its_series(
     sign_in_cookie(session, web_client, world.technician)
     page = web_client.get(f"/projects/{world.project.id}").text
     assert f'href="/projects/{world.project.id}/series"' in page
+
+
+def test_compaction_points_draw_the_curve_and_can_be_removed(
+    session: Session, web_client: TestClient, world: SeriesWorld
+) -> None:
+    # Points on ρ_d = 1.800 − 8·(w − 0.15)² Mg/m³: vertex at w = 15.0 %, 1.800 Mg/m³ by
+    # construction (worked by hand: 11 % -> 1.7872, 13 % -> 1.7968)
+    csrf = sign_in_cookie(session, web_client, world.technician)
+    series_id = open_series(web_client, csrf, world)
+    for w, rho in (("11", "1.7872"), ("13", "1.7968"), ("17", "1.7968"), ("19", "1.7872")):
+        response = web_client.post(
+            f"/series/{series_id}/curve-points",
+            data={
+                "point_water_content": w,
+                "point_water_content_unit": "%",
+                "point_dry_density": rho,
+                "point_dry_density_unit": "Mg/m**3",
+            },
+            headers={**csrf, **HTMX},
+        )
+        assert response.status_code == 200, response.text
+    add(web_client, csrf, series_id, world.tests["C"].id, "C", "16.0", "1.780")
+    page = web_client.get(f"/series/{series_id}").text
+    assert 'class="compaction-curve"' in page
+    assert "optimum water content 15.0 %" in page
+    assert "1800 kg/m³" in page  # maximum dry density
+    refused = web_client.post(
+        f"/series/{series_id}/curve-points",
+        data={
+            "point_water_content": "abc",
+            "point_dry_density": "1.7",
+            "point_dry_density_unit": "Mg/m**3",
+        },
+        headers={**csrf, **HTMX},
+    )
+    assert refused.status_code == 422
+    assert 'id="err-point_water_content"' in refused.text
+    assert 'value="abc"' in refused.text
+    point_id = re.search(r"/curve-points/(\d+)/remove", page)
+    assert point_id is not None
+    removed = web_client.post(
+        f"/series/{series_id}/curve-points/{point_id.group(1)}/remove", headers={**csrf, **HTMX}
+    )
+    assert removed.status_code == 200
+    assert removed.text.count('/remove"') < page.count('/remove"')
