@@ -41,6 +41,8 @@ OWNERS: dict[str, tuple[str, str]] = {
     "test_apparatus": ("test_id", "permeability_test"),
     "reading": ("trial_id", "trial"),
     "location": ("project_id", "project"),
+    "series_member": ("series_id", "compaction_series"),
+    "compaction_curve_point": ("series_id", "compaction_series"),
     "access_token": ("user_id", "app_user"),
 }
 
