@@ -1,7 +1,7 @@
 """compaction series: a project's series, their members and compaction-curve points
 
 Revision ID: 0003f
-Revises: 0002b
+Revises: 0003d
 Create Date: 2026-12-02 13:05:55.417916
 
 """
@@ -13,7 +13,7 @@ import sqlmodel
 from alembic import op
 
 revision: str = "0003f"
-down_revision: str | None = "0002b"
+down_revision: str | None = "0003d"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 
