@@ -62,6 +62,7 @@ __all__ = [
     "Entry",
     "Flow",
     "GradientSeries",
+    "KeptRequest",
     "Method",
     "Need",
     "Reduction",
@@ -472,20 +473,40 @@ def reduce_stored(
     return _reduced(stored.request, stored.defaults, keys, numbers)
 
 
+@dataclass(frozen=True)
+class KeptRequest:
+    """A stored test's request without its ORM rows (safe to keep across sessions): the
+    request, the default uncertainties, and each included trial's id and number."""
+
+    request: dict[str, Any]
+    defaults: dict[str, str]
+    keys: tuple[int, ...]
+    numbers: tuple[int, ...]
+
+    @classmethod
+    def of(cls, stored: StoredRequest) -> KeptRequest:
+        return cls(
+            request=stored.request,
+            defaults=stored.defaults,
+            keys=tuple(t.id or 0 for t in stored.included),
+            numbers=tuple(t.seq for t in stored.included),
+        )
+
+
 def reduce_request(
-    stored: StoredRequest, *, unsaved: Mapping[str, Any] | None = None, number: int = 0
+    kept: KeptRequest, *, unsaved: Mapping[str, Any] | None = None, number: int = 0
 ) -> Reduction:
-    """Reduce a stored test's request (`stored_request`), with the entries of one unsaved
-    trial added last under the key ``"new"`` and the number `number` (the live preview);
-    reads nothing, stores nothing, changes nothing in `stored`."""
-    trials = list(stored.request["trials"])
-    keys: list[Any] = [t.id for t in stored.included]
-    numbers = [t.seq for t in stored.included]
+    """Reduce a stored test's request, with the entries of one unsaved trial added last
+    under the key ``"new"`` and the number `number` (the live preview); reads nothing,
+    stores nothing, changes nothing in `kept`."""
+    trials = list(kept.request["trials"])
+    keys: list[Any] = list(kept.keys)
+    numbers = list(kept.numbers)
     if unsaved:
         trials.append(dict(unsaved))
         keys.append(UNSAVED)
         numbers.append(number)
-    return _reduced({**stored.request, "trials": trials}, stored.defaults, keys, numbers)
+    return _reduced({**kept.request, "trials": trials}, kept.defaults, keys, numbers)
 
 
 def check_trial(test: PermeabilityTest, entries: Mapping[str, Any], number: int) -> Reduction:
