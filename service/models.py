@@ -16,6 +16,7 @@ from service.lab_tests.models import (
 )
 from service.projects.models import Location, Project
 from service.samples.models import Sample
+from service.scope.models import ScopeRule, ScopeStandard, ScopeVersion
 from service.signoffs.models import SignOff
 from service.stored_text import install as install_stored_text_check
 
@@ -37,6 +38,9 @@ __all__ = [
     "Reading",
     "Sample",
     "SaturationStep",
+    "ScopeRule",
+    "ScopeStandard",
+    "ScopeVersion",
     "SignOff",
     "Specimen",
     "TestApparatus",
