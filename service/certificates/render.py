@@ -18,6 +18,7 @@ from service.certificates.document import (
     format_k,
 )
 from service.common import CertificateKind
+from service.scope.service import OUTSIDE as OUTSIDE_SCOPE
 
 INK = (25, 32, 40)
 MUTED = (95, 104, 114)
@@ -51,6 +52,8 @@ _REPLACEMENTS = {
     "√": "sqrt",
     "Δ": "d",
     "η": "eta",
+    "ν": "nu",
+    "∞": "infinity",
     "ρ": "rho",
     "γ": "gamma",
     "₀": "0",
@@ -444,9 +447,11 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
     if test.revision > 1:
         title += f" (revision {test.revision})"
     pdf.heading(f"{title}: {test.method_label}, {test.standard}", size=10)
+    scope = "" if test.in_scope else f" ({OUTSIDE_SCOPE})"
     rows = [
         ("Method", test.method_label),
-        ("Standard", test.standard),
+        ("Standard", test.standard + scope),
+        ("Rules applied", test.rules_words),
         ("Permeant", test.permeant),
         (
             "Reference temperature",
@@ -506,7 +511,8 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     if test.expanded_u_m_per_s is not None and test.expanded_u_rel is not None:
         u_text = (
             f"+/- {format_k(test.expanded_u_m_per_s)} m/s "
-            f"({test.expanded_u_rel * 100:.1f} %, coverage factor k = 2, about 95 %)"
+            f"({test.expanded_u_rel * 100:.1f} %, about 95 %; coverage factor {test.coverage}, "
+            "ν_eff the effective degrees of freedom, Welch-Satterthwaite)"
         )
     reference = f"{test.reference_temperature_c:g}"
     pdf.set_fill_color(*SHADE)
@@ -553,13 +559,12 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.set_text_color(*COMPLIANCE_COLOURS.get(test.compliance, INK))
     pdf.multi_cell(92, 4.4, latin1(test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.set_text_color(*INK)
-    if test.compliance != "no_limit" and test.expanded_u_m_per_s is not None:
+    if test.compliance != "no_limit":
         pdf.set_font("Helvetica", "", 7)
         pdf.multi_cell(
             92,
             3.4,
-            "Decision rule: the measured k20 is compared with the limit (simple acceptance); "
-            "the uncertainty is stated, not deducted.",
+            latin1(f"Decision rule: {test.decision_rule}."),
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
         )
@@ -570,7 +575,8 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     rows = []
     colours = []
     for check in test.checks:
-        rows.append([check.label, STATUS_TEXT.get(check.status, check.status), check.message])
+        finding = f"{check.message} ({check.source})" if check.source else check.message
+        rows.append([check.label, STATUS_TEXT.get(check.status, check.status), finding])
         colours.append([None, STATUS_COLOURS.get(check.status), None])
     pdf.table_rows(
         ["Check", "Status", "Finding"], rows, [40, 16, 124], colours=colours, font_size=7.4
@@ -625,6 +631,7 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
             verdict = {
                 "complies": "complies",
                 "does_not_comply": "does not comply",
+                "undecided": "not decidable",
                 "no_limit": "no limit",
             }[test.compliance]
             rows.append(
@@ -634,7 +641,7 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
                     sample.location.split(" (")[0],
                     sample.depth,
                     test.method_label,
-                    test.standard,
+                    test.standard + ("" if test.in_scope else " *"),
                     format_k(test.k_ref_m_per_s),
                     u,
                     verdict,
@@ -665,6 +672,21 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
         font_size=7,
         colours=colours,
     )
+    notes = [
+        "U: expanded uncertainty, about 95 % coverage; coverage factors: "
+        + "; ".join(
+            f"{sample.lab_id} test {test.series}: {test.coverage or 'no uncertainty stated'}"
+            for sample in doc.samples
+            for test in sample.tests
+        )
+        + "."
+    ]
+    if any(not test.in_scope for test in doc.tests):
+        notes.append(f"* {OUTSIDE_SCOPE.capitalize()} of the laboratory.")
+    decision_rules = sorted({t.decision_rule for t in doc.tests if t.compliance != "no_limit"})
+    notes += [f"Decision rule: {rule}." for rule in decision_rules]
+    for note in notes:
+        pdf.paragraph(latin1(note), size=7)
     if points:
         pdf.ensure_space(70)
         top = pdf.get_y() + 2

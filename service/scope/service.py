@@ -75,7 +75,7 @@ class StandardChange(BaseModel):
     """A standard the laboratory lists, its edition and defaults (None: the standard's own)."""
 
     model_config = ConfigDict(extra="forbid")
-    standard: str = Field(description="e.g. 'ASTM D5084'")
+    standard: Annotated[str, Field(max_length=40)] = Field(description="e.g. 'ASTM D5084'")
     edition: Annotated[str, Field(max_length=40)] = Field(
         "", description="the edition the laboratory works to, e.g. 'D5084-16a'"
     )
@@ -90,8 +90,8 @@ class RuleChange(BaseModel):
     differently), the edition and clause it read them in."""
 
     model_config = ConfigDict(extra="forbid")
-    standard: str
-    rule_id: str
+    standard: Annotated[str, Field(max_length=40)]
+    rule_id: Annotated[str, Field(max_length=40)]
     confirmed: bool = True
     edition: Annotated[str, Field(max_length=40)] = ""
     clause: Annotated[str, Field(max_length=120)] = ""
