@@ -211,7 +211,8 @@ def view(session: Session) -> dict[str, Any]:
                 for item in rule.limits
             ]
             changed = confirmed and any(
-                not math.isclose(x["value"], x["built_in"], rel_tol=1e-12) for x in limits
+                not math.isclose(float(x["value"]), float(x["built_in"]), rel_tol=1e-12)
+                for x in limits
             )
             rules.append(
                 {
@@ -313,11 +314,11 @@ def _check(data: ScopeUpdate) -> None:
                 )
             )
             continue
-        limits = {item.id: item for item in rule.limits}
+        limits = {limit.id: limit for limit in rule.limits}
         for limit_id, value in change.limits.items():
-            item = limits.get(limit_id)
+            known_limit = limits.get(limit_id)
             name = f"{change.standard} · {check_label(rule.id)} · "
-            if item is None:
+            if known_limit is None:
                 problems.append(
                     FieldProblem(
                         (*where, "limits", limit_id),
@@ -333,8 +334,8 @@ def _check(data: ScopeUpdate) -> None:
                         (*where, "limits", limit_id),
                         "must be a positive number",
                         value,
-                        f"a positive number in {item.unit or 'no unit'}",
-                        label=name + item.label,
+                        f"a positive number in {known_limit.unit or 'no unit'}",
+                        label=name + known_limit.label,
                     )
                 )
     if problems:
@@ -380,29 +381,29 @@ def update_scope(session: Session, data: ScopeUpdate, *, actor: User) -> ScopeVe
             changed = True
     for change in data.rules:
         values = change.model_dump(exclude={"standard", "rule_id"})
-        row = session.exec(
+        found = session.exec(
             select(ScopeRule).where(
                 ScopeRule.standard == change.standard, ScopeRule.rule_id == change.rule_id
             )
         ).first()
-        if row is None:
+        if found is None:
             if not change.confirmed:
                 continue
-            row = ScopeRule(
+            rule_row = ScopeRule(
                 standard=change.standard,
                 rule_id=change.rule_id,
                 **values,
                 confirmed_at=now,
                 confirmed_by_id=actor.id,
             )
-            session.add(row)
+            session.add(rule_row)
             session.flush()
-            record_created(session, row, actor_id=actor.id)
+            record_created(session, rule_row, actor_id=actor.id)
             changed = True
         else:
-            if any(getattr(row, name) != value for name, value in values.items()):
+            if any(getattr(found, name) != value for name, value in values.items()):
                 stamp = {"confirmed_at": now, "confirmed_by_id": actor.id}
-                apply_changes(session, row, {**values, **stamp}, actor_id=actor.id)
+                apply_changes(session, found, {**values, **stamp}, actor_id=actor.id)
                 changed = True
     if not changed:
         return None
