@@ -75,6 +75,7 @@ class CheckLine:
     status: str  # pass | warn | fail | not_applicable
     message: str
     source: str  # the document and clause, and "limit not yet confirmed ..." until it is
+    confirmed: bool | None = None  # False: the laboratory has not confirmed the rule's limits
 
 
 @dataclass(frozen=True)
@@ -367,6 +368,7 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
             status=c["status"],
             message=c.get("message", ""),
             source=source_words(c),
+            confirmed=c.get("limit_confirmed"),
         )
         for c in result.get("checks", [])
     )

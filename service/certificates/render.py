@@ -19,6 +19,7 @@ from service.certificates.document import (
 )
 from service.common import CertificateKind
 from service.scope.service import OUTSIDE as OUTSIDE_SCOPE
+from service.scope.service import UNCONFIRMED
 
 INK = (25, 32, 40)
 MUTED = (95, 104, 114)
@@ -575,12 +576,14 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     rows = []
     colours = []
     for check in test.checks:
-        finding = f"{check.message} ({check.source})" if check.source else check.message
-        rows.append([check.label, STATUS_TEXT.get(check.status, check.status), finding])
+        label = f"{check.label} [1]" if check.confirmed is False else check.label
+        rows.append([label, STATUS_TEXT.get(check.status, check.status), check.message])
         colours.append([None, STATUS_COLOURS.get(check.status), None])
     pdf.table_rows(
         ["Check", "Status", "Finding"], rows, [40, 16, 124], colours=colours, font_size=7.4
     )
+    if any(check.confirmed is False for check in test.checks):
+        pdf.paragraph(f"[1] {UNCONFIRMED}.", size=7)
     pdf.set_font("Helvetica", "B", 8.5)
     pdf.cell(0, 5, "Deviations from the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     if test.deviations:
