@@ -17,6 +17,7 @@ from service.certificates.models import Certificate
 from service.certificates.service import issue_sample_certificate
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.reduction import for_users
 from service.scope.models import ScopeRule, ScopeVersion
 from service.scope.service import OUTSIDE, UNCONFIRMED
 from tests.auth_helpers import bearer
@@ -277,3 +278,23 @@ def test_certificate_and_review_state_decision_rule_coverage_factor_and_dof(
     assert f"k = {k:.2f}, ν_eff = {nu:.1f}" in review
     assert "guarded acceptance" in review.split('data-testid="decision-rule"')[1][:300]
     assert "k = 2)" not in review
+
+
+def test_the_door_takes_internal_notes_out_of_check_texts() -> None:
+    """Notes of how a limit is known, as older engine texts wrote them, never reach people."""
+    result = {
+        "checks": [
+            {
+                "message": "B = 0.93 is below 0.95 [from memory; verify against the edition in "
+                "use].",
+                "source": "ASTM D5084, saturation (common practice, no source)",
+            },
+            {"message": "Within 15–30 °C (read).", "source": "ASTM D5084 (from memory)"},
+        ]
+    }
+    cleaned = for_users(result)["checks"]
+    assert cleaned[0] == {
+        "message": "B = 0.93 is below 0.95.",
+        "source": "ASTM D5084, saturation",
+    }
+    assert cleaned[1] == {"message": "Within 15–30 °C.", "source": "ASTM D5084"}
