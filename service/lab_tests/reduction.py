@@ -563,6 +563,8 @@ class StoredRequest:
     request: dict[str, Any]
     defaults: dict[str, str]
     included: list[Trial] = field(default_factory=list)
+    # The rule book to judge it by and the scope version it was built from.
+    rules: tuple[RuleBook, int | None] = (BUILT_IN, None)
 
     @property
     def input_hash(self) -> str:
@@ -580,10 +582,12 @@ def stored_request(
     specimen: Specimen | None = None,
     trials: Sequence[Trial] | None = None,
     defaults: Mapping[str, str] | None = None,
+    scope_version: int | str | None = CURRENT,
 ) -> StoredRequest:
     """The request of a stored test as it stands; `specimen` and `trials` replace the stored
     ones (a candidate being checked), `defaults` the register's uncertainties (a submitted
-    test keeps the ones it was reduced with)."""
+    test keeps the ones it was reduced with), with the rules of the laboratory's scope
+    (`scope_version`: the current one, a given version, or None for the built-in rules)."""
     assert test.id is not None
     apparatus = list(
         session.exec(
@@ -607,6 +611,7 @@ def stored_request(
         request=request,
         defaults=default_uncertainties(apparatus) if defaults is None else dict(defaults),
         included=included(rows),
+        rules=scope_rules(session, scope_version),
     )
 
 
@@ -643,7 +648,9 @@ def reduce_stored(
     if unsaved:
         seq = max((t.seq for t in rows), default=0) + 1
         rows.append(Trial(test_id=test.id, seq=seq, idempotency_key="-", entries=dict(unsaved)))
-    stored = stored_request(session, test, trials=rows, defaults=defaults)
+    stored = stored_request(
+        session, test, trials=rows, defaults=defaults, scope_version=scope_version
+    )
     if specimen_changes:
         section = dict(stored.request["specimen"])
         for name, value in specimen_changes.items():
@@ -656,8 +663,7 @@ def reduce_stored(
         stored.request["specimen"] = section
     keys = [t.id if t.id is not None else UNSAVED for t in stored.included]
     numbers = [t.seq for t in stored.included]
-    rules = scope_rules(session, scope_version)
-    return _reduced(stored.request, stored.defaults, keys, numbers, rules)
+    return _reduced(stored.request, stored.defaults, keys, numbers, stored.rules)
 
 
 def check_trial(test: PermeabilityTest, entries: Mapping[str, Any], number: int) -> Reduction:
