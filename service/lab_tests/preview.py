@@ -32,6 +32,7 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.lab_tests.reduction import KeptRequest, Reduction, reduce_request, stored_request
+from service.scope.models import ScopeVersion
 
 _KEPT_TESTS = 512
 _kept: dict[int, tuple[tuple[Any, ...], KeptRequest]] = {}
@@ -60,6 +61,8 @@ def _stamp_columns() -> list[Any]:
         *_of(SaturationStep, func.count(), func.max(col(SaturationStep.id))),
         *_of(TestApparatus, func.count()),
         apparatus,
+        # The lab's scope: a new version changes the rules a preview judges by.
+        select(func.max(col(ScopeVersion.number))).scalar_subquery(),
     ]
 
 
