@@ -232,6 +232,11 @@ def seed(samples: int, trial_tests: int, issue_samples: int) -> dict[str, Any]:
             )
         insert(session, PermeabilityTest, bulk_tests)
         session.commit()
+        # Planner statistics for the bulk rows: without them SQLite serves the queue's page
+        # from the (state, technician, due date) index and sorts every open test, instead of
+        # reading the partial index on open tests in order (checked with EXPLAIN QUERY PLAN).
+        session.execute(sa.text("ANALYZE"))
+        session.commit()
         bulk_seconds = time.perf_counter() - started
 
         # Running tests assigned to the technician, each a copy of a demo test with trials,
