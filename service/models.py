@@ -14,6 +14,7 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
+from service.laboratory.models import LabSettings
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -29,6 +30,7 @@ __all__ = [
     "Checkpoint",
     "CustodyEvent",
     "IdempotencyRecord",
+    "LabSettings",
     "Location",
     "Organisation",
     "PermeabilityTest",

@@ -15,7 +15,7 @@ from sqlmodel import Session, col, select
 
 from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
-from service.common import CertificateKind, OrganisationKind, Preparation
+from service.common import CertificateKind, Preparation
 from service.config import get_settings
 from service.lab_tests.models import (
     PermeabilityTest,
@@ -25,6 +25,7 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.lab_tests.reduction import Scope, catalogue
+from service.laboratory.service import accreditation_text, lab_settings
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
@@ -69,6 +70,7 @@ SIGNOFF_LABELS = {
 class Party:
     name: str
     address: str = ""
+    accreditation: str = ""
 
 
 @dataclass(frozen=True)
@@ -177,6 +179,8 @@ class CertificateDocument:
     supersede_reason: str = ""
     key_id: str = ""
     cautions: tuple[str, ...] = field(default=CAUTIONS)
+    # A preview before issue: watermarked, not numbered, not signed, never stored.
+    draft: bool = False
 
     @property
     def title(self) -> str:
@@ -451,14 +455,13 @@ def build_sample_section(
 
 
 def lab_party(session: Session) -> Party:
-    lab = session.exec(
-        select(Organisation)
-        .where(Organisation.kind == OrganisationKind.LAB)
-        .order_by(col(Organisation.id))
-    ).first()
-    if lab is None:
-        return Party(name=get_settings().lab_name)
-    return Party(name=lab.name, address=lab.address)
+    """The laboratory as its settings name it (service.laboratory)."""
+    settings = lab_settings(session)
+    return Party(
+        name=settings.name or "-",
+        address=settings.address,
+        accreditation=accreditation_text(settings),
+    )
 
 
 def build_document(
@@ -475,6 +478,7 @@ def build_document(
     key_id: str,
     supersedes: str = "",
     supersede_reason: str = "",
+    draft: bool = False,
 ) -> CertificateDocument:
     """Gather everything a certificate shows; `samples` pairs each sample with its tests."""
     client = session.get(Organisation, project.client_id)
@@ -485,7 +489,7 @@ def build_document(
         number=number,
         revision=revision,
         verification_code=verification_code,
-        verify_url=f"{base_url}/verify/{verification_code}",
+        verify_url="" if draft else f"{base_url}/verify/{verification_code}",
         issued_at=issued_at,
         issued_by=SignOffLine(
             meaning="issued",
@@ -504,4 +508,5 @@ def build_document(
         supersedes=supersedes,
         supersede_reason=supersede_reason,
         key_id=key_id,
+        draft=draft,
     )
