@@ -307,11 +307,10 @@ def _check_test_request(form: ReceptionForm, user: User, outcome: Outcome) -> No
     if not form.test_method:
         return
     if not lab_tests.may_request_tests(user):
-        outcome.errors["test_method"] = {
-            "msg": "Requesting tests is for reception, lab managers, reviewers and admins; "
-            "leave it at “None” and a lab manager requests them.",
-            "kind": "forbidden",
-        }
+        outcome.general.append(
+            "Requesting tests is for reception, lab managers, reviewers and admins: the "
+            "samples can be received without one, and a lab manager requests them."
+        )
         return
     try:
         _test_request(form)

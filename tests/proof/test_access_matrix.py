@@ -119,7 +119,7 @@ ACCESS: dict[str, Access] = {
     "GET /api/v1/samples/{sample_id}/tests": _owned(SIGNED_IN),
     "GET /api/v1/tests/{test_id}": _owned(SIGNED_IN),
     # Planners change the request and conditions; the assigned technician the conditions.
-    "PATCH /api/v1/tests/{test_id}": Access(STAFF),
+    "PATCH /api/v1/tests/{test_id}": Access(PLANNERS | WRITERS),
     "POST /api/v1/tests/{test_id}/start": Access(WRITERS),
     "PATCH /api/v1/tests/{test_id}/specimen": Access(WRITERS),
     "POST /api/v1/tests/{test_id}/saturation": Access(WRITERS),
