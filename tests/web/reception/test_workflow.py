@@ -130,7 +130,7 @@ def test_project_page_requests_one_test_on_the_ticked_samples(
 
 def test_the_tick_boxes_are_a_fingertip_wide(web_client: TestClient) -> None:
     css = web_client.get("/static/css/reception.css").text
-    rule = re.search(r'\.pick__box input\[type="checkbox"\] \{(.*?)\}', css, re.S)
+    rule = re.search(r'\.tick-box input\[type="checkbox"\] \{(.*?)\}', css, re.S)
     assert rule
     # --touch is 2.75rem, 44 px: the minimum touch target of WCAG 2.2 SC 2.5.5 (AAA).
     assert "width: var(--touch)" in rule.group(1)
