@@ -13,6 +13,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 from typing import Any
+from urllib.parse import urlsplit
 
 import pytest
 from sqlmodel import Session, select
@@ -47,9 +48,14 @@ class Walk:
     def __init__(self, artifacts: Path) -> None:
         self.counts = dict.fromkeys(BASELINE, 0)
         self.artifacts = artifacts
+        self.paths: set[str] = set()
+
+    def _loaded(self, page: Any) -> None:
+        self._count("screens")
+        self.paths.add(re.sub(r"\d+", "N", urlsplit(page.url).path))
 
     def watch(self, page: Any) -> Any:
-        page.on("load", lambda _page: self._count("screens"))
+        page.on("load", self._loaded)
         return page
 
     def _count(self, what: str, n: int = 1) -> None:
@@ -192,6 +198,7 @@ def test_walk_receive_to_verified_certificate(
         draft = desk.request.get(f"{live_server}{draft_link.get_attribute('href')}")
         walk._count("clicks")
         walk._count("screens")
+        walk.paths.add("/tests/N/review/draft.pdf")
         assert draft.headers["content-type"] == "application/pdf"
         assert draft.body().startswith(b"%PDF")
         walk.shot(page, "4-approved")
@@ -230,6 +237,7 @@ def test_walk_receive_to_verified_certificate(
     assert session.get(PermeabilityTest, test.id) is not None
     counts = walk.counts
     report = ", ".join(f"{k} {counts[k]} (was {BASELINE[k]})" for k in BASELINE)
+    report += f"; distinct screens {len(walk.paths)}: {', '.join(sorted(walk.paths))}"
     print(f"walk: {report}")
     (artifacts / "walk-counts.txt").write_text(report + "\n", encoding="utf-8")
     for what, bound in BOUNDS.items():
