@@ -273,14 +273,16 @@ def _export_checkpoints(args: argparse.Namespace) -> int:
 
     from service.audit.checkpoints import export
     from service.certificates.signing import published_keys
-    from service.config import get_settings
     from service.db import session_scope
+    from service.laboratory.service import lab_settings
 
     if args.path.exists() and not args.force:
         print(f"refused: {args.path} exists (add --force to replace it)", file=sys.stderr)
         return 2
     with session_scope() as session:
-        document = export(session, lab_name=get_settings().lab_name, keys=published_keys(session))
+        document = export(
+            session, lab_name=lab_settings(session).name, keys=published_keys(session)
+        )
     args.path.write_text(json.dumps(document, indent=1) + "\n", encoding="utf-8")
     print(f"wrote {len(document['checkpoints'])} checkpoint(s) to {args.path}")
     return 0

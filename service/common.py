@@ -45,6 +45,7 @@ class OrganisationKind(StrEnum):
 
 
 class Role(StrEnum):
+    RECEPTION = "reception"  # receives samples, prints labels, sees custody; never tests or signs
     TECHNICIAN = "technician"
     REVIEWER = "reviewer"
     LAB_MANAGER = "lab_manager"

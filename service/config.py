@@ -24,7 +24,6 @@ class Settings(BaseSettings):
     secret_key: str = ""
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=1, le=65535)
-    lab_name: str = "Seepline Soil Laboratory"
     public_base_url: str = "http://127.0.0.1:8000"
     # Argon2 work factors: the library defaults in production, cheaper in tests.
     argon2_time_cost: int = Field(default=3, ge=1)

@@ -42,6 +42,7 @@ from service.lab_tests.schemas import (
     TestCreate,
     TrialCreate,
 )
+from service.laboratory.service import save_lab_settings
 from service.projects.models import Location, Project
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
@@ -56,9 +57,17 @@ from service.series.service import (
 )
 
 LAB_NAME = "Larkspur Soils Laboratory"
+# The demo laboratory's identity as its admin would keep it (all invented).
+LAB_IDENTITY = {
+    "name": LAB_NAME,
+    "address": "Unit 4, Quarrymead Works\nLarkspur Vale LV3 9QT",
+    "accreditation_body": "Vale Accreditation Council (invented)",
+    "accreditation_number": "VAC-T-0417",
+}
 DEMO_PASSWORDS: dict[str, tuple[str, str]] = {
     "admin@larkspur-lab.example": ("admin", "demo-admin-2026"),
     "manager@larkspur-lab.example": ("lab_manager", "demo-manager-2026"),
+    "reception@larkspur-lab.example": ("reception", "demo-reception-2026"),
     "reviewer@larkspur-lab.example": ("reviewer", "demo-reviewer-2026"),
     "tech.brannagh@larkspur-lab.example": ("technician", "demo-tech-2026"),
     "tech.aldous@larkspur-lab.example": ("technician", "demo-tech-2026"),
@@ -68,6 +77,7 @@ DEMO_PASSWORDS: dict[str, tuple[str, str]] = {
 _NAMES = {
     "admin@larkspur-lab.example": "Morwenna Tallis",
     "manager@larkspur-lab.example": "Dario Penhallow",
+    "reception@larkspur-lab.example": "Ines Carrow",
     "reviewer@larkspur-lab.example": "Signe Oakhart",
     "tech.brannagh@larkspur-lab.example": "Kofi Brannagh",
     "tech.aldous@larkspur-lab.example": "Lena Aldous",
@@ -181,6 +191,7 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
             password=password,
         )
     admin = users["admin@larkspur-lab.example"]
+    save_lab_settings(session, actor=admin, version=None, values=LAB_IDENTITY)
     apparatus = _load_apparatus(session, now, actor_id=admin.id)
     manager = users["manager@larkspur-lab.example"]
     _load_scope(session, manager)

@@ -30,7 +30,7 @@ from service.errors import NotAuthenticated, PermissionDenied
 SESSION_COOKIE = "seepline_session"
 CSRF_HEADER = "X-CSRF-Token"
 SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
-LAB_STAFF = (Role.TECHNICIAN, Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN)
+LAB_STAFF = (Role.RECEPTION, Role.TECHNICIAN, Role.REVIEWER, Role.LAB_MANAGER, Role.ADMIN)
 
 
 _write_gates: weakref.WeakKeyDictionary[asyncio.AbstractEventLoop, asyncio.Lock] = (
@@ -253,5 +253,8 @@ def require_roles(*roles: Role) -> Callable[[User], User]:
 LabStaff = Annotated[User, Depends(require_roles(*LAB_STAFF))]
 Reviewer = Annotated[User, Depends(require_roles(Role.REVIEWER, Role.LAB_MANAGER))]
 Manager = Annotated[User, Depends(require_roles(Role.LAB_MANAGER, Role.ADMIN))]
-Reception = Annotated[User, Depends(require_roles(Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN))]
+Reception = Annotated[
+    User,
+    Depends(require_roles(Role.RECEPTION, Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN)),
+]
 Admin = Annotated[User, Depends(require_roles(Role.ADMIN))]

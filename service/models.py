@@ -14,6 +14,7 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
+from service.laboratory.models import LabSettings
 from service.projects.models import Location, Project
 from service.queue_keys import install as install_queue_keys
 from service.samples.models import Sample
@@ -34,6 +35,7 @@ __all__ = [
     "CompactionSeries",
     "CustodyEvent",
     "IdempotencyRecord",
+    "LabSettings",
     "Location",
     "Organisation",
     "PermeabilityTest",

@@ -149,6 +149,23 @@ def _overdue(today: date) -> sa.ColumnElement[bool]:
     return sa.and_(_open(), col(PermeabilityTest.queue_due_date) < today)
 
 
+def due_dates(
+    session: Session, test_ids: list[int], today: date
+) -> dict[int, tuple[date | None, bool]]:
+    """Each test's due date and whether it is overdue, by the queue's own rule (for pages
+    that list tests outside the queue, such as the technician's home)."""
+    if not test_ids:
+        return {}
+    rows = session.execute(
+        sa.select(
+            col(PermeabilityTest.id), col(PermeabilityTest.queue_due_date), _overdue(today)
+        ).where(col(PermeabilityTest.id).in_(test_ids))
+    ).all()
+    return {
+        test_id: (None if due == NO_DUE_DATE else due, bool(late)) for test_id, due, late in rows
+    }
+
+
 def _filtered(
     query: Any, filters: QueueFilters, *, with_state: bool = True, join_sample: bool = False
 ) -> Any:

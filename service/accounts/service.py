@@ -232,6 +232,39 @@ def update_user(
     return user
 
 
+def set_password(
+    session: Session, user: User, new_password: str, *, actor: User, field: str = "new_password"
+) -> None:
+    """Check and store a new password (audited as changed, never its value); bumps the
+    version. Callers decide what else it means (sessions revoked, the current one checked)."""
+    assert user.id is not None
+    check_password_strength(new_password, field=field, email=user.email, full_name=user.full_name)
+    user.password_hash = hash_password(new_password)
+    user.version += 1
+    session.add(user)
+    record_change(
+        session,
+        entity="app_user",
+        entity_id=user.id,
+        field="password",
+        old=None,
+        new="changed" if actor.id == user.id else "reset by an admin",
+        actor_id=actor.id,
+    )
+    session.flush()
+
+
+def reset_password(
+    session: Session, user: User, *, actor: User, version: int, new_password: str
+) -> int:
+    """An admin gives a user a new password (to pass on by hand); the user's sessions and
+    API tokens are revoked and any lock-out cleared. Returns how many tokens were revoked."""
+    require_version(user, version, f"user {user.id}", yours={}, current=user_snapshot(user))
+    set_password(session, user, new_password, actor=actor)
+    unlock_user(session, user, actor=actor)
+    return revoke_all_tokens(session, user, actor=actor)
+
+
 def unlock_user(session: Session, user: User, *, actor: User) -> User:
     """Clear the failed sign-in counts and any back-off or lock-out."""
     clear_failures(session, user.email)

@@ -37,6 +37,7 @@ from service.accounts.service import (
     normalise_email,
     revoke_all_tokens,
     revoke_token,
+    set_password,
 )
 from service.accounts.throttle import account_subject, device_subject
 from service.accounts.tokens import issue_token
@@ -317,17 +318,5 @@ def change_password(
     )
     if new_password == current_password:
         raise field_error("new_password", "must differ from the current password")
-    user.password_hash = hash_password(new_password)
-    user.version += 1
-    session.add(user)
-    record_change(
-        session,
-        entity="app_user",
-        entity_id=user.id,
-        field="password",
-        old=None,
-        new="changed",
-        actor_id=user.id,
-    )
-    session.flush()
+    set_password(session, user, new_password, actor=user)
     return revoke_all_tokens(session, user, actor=user, keep=keep)

@@ -16,7 +16,7 @@ from sqlmodel import Session, col, select
 from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
 from service.certificates.series import SeriesSection, build_series_sections
-from service.common import CertificateKind, OrganisationKind, Preparation
+from service.common import CertificateKind, Preparation
 from service.config import get_settings
 from service.lab_tests.models import (
     PermeabilityTest,
@@ -26,6 +26,7 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.lab_tests.reduction import Scope, catalogue, coverage_words, decision_rule_words
+from service.laboratory.service import accreditation_text, lab_settings
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.scope.service import check_label, scope_of_test, source_words
@@ -59,6 +60,7 @@ SIGNOFF_LABELS = {
 class Party:
     name: str
     address: str = ""
+    accreditation: str = ""
 
 
 @dataclass(frozen=True)
@@ -173,6 +175,8 @@ class CertificateDocument:
     key_id: str = ""
     cautions: tuple[str, ...] = field(default=CAUTIONS)
     series: tuple[SeriesSection, ...] = ()  # compaction series (project summary only)
+    # A preview before issue: watermarked, not numbered, not signed, never stored.
+    draft: bool = False
 
     @property
     def title(self) -> str:
@@ -460,14 +464,13 @@ def build_sample_section(
 
 
 def lab_party(session: Session) -> Party:
-    lab = session.exec(
-        select(Organisation)
-        .where(Organisation.kind == OrganisationKind.LAB)
-        .order_by(col(Organisation.id))
-    ).first()
-    if lab is None:
-        return Party(name=get_settings().lab_name)
-    return Party(name=lab.name, address=lab.address)
+    """The laboratory as its settings name it (service.laboratory)."""
+    settings = lab_settings(session)
+    return Party(
+        name=settings.name or "-",
+        address=settings.address,
+        accreditation=accreditation_text(settings),
+    )
 
 
 def build_document(
@@ -484,6 +487,7 @@ def build_document(
     key_id: str,
     supersedes: str = "",
     supersede_reason: str = "",
+    draft: bool = False,
 ) -> CertificateDocument:
     """Gather everything a certificate shows; `samples` pairs each sample with its tests."""
     client = session.get(Organisation, project.client_id)
@@ -494,7 +498,7 @@ def build_document(
         number=number,
         revision=revision,
         verification_code=verification_code,
-        verify_url=f"{base_url}/verify/{verification_code}",
+        verify_url="" if draft else f"{base_url}/verify/{verification_code}",
         issued_at=issued_at,
         issued_by=SignOffLine(
             meaning="issued",
@@ -514,6 +518,7 @@ def build_document(
         supersede_reason=supersede_reason,
         key_id=key_id,
         series=_series_sections(session, kind, project, samples, issued_by),
+        draft=draft,
     )
 
 

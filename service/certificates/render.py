@@ -27,6 +27,8 @@ MUTED = (95, 104, 114)
 RULE = (190, 196, 202)
 ACCENT = (21, 94, 117)
 SHADE = (236, 241, 244)
+WATERMARK = (222, 226, 230)
+DRAFT_MARK = "DRAFT \u2014 not for use"
 STATUS_COLOURS = {
     "pass": (30, 120, 60),
     "warn": (170, 110, 0),
@@ -92,6 +94,8 @@ class CertificatePDF(FPDF):
 
     def header(self) -> None:
         doc = self.document
+        if doc.draft:
+            self._watermark()
         self.set_y(10)
         self.set_font("Helvetica", "B", 10)
         self.set_text_color(*ACCENT)
@@ -101,7 +105,7 @@ class CertificatePDF(FPDF):
         self.cell(
             0,
             5,
-            latin1(f"Certificate {doc.number}  rev {doc.revision}"),
+            latin1(DRAFT_MARK if doc.draft else f"Certificate {doc.number}  rev {doc.revision}"),
             align="R",
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
@@ -109,7 +113,8 @@ class CertificatePDF(FPDF):
         self.set_font("Helvetica", "", 7.5)
         self.set_text_color(*MUTED)
         self.cell(110, 4, latin1(doc.lab.address.replace("\n", ", ")))
-        self.cell(0, 4, f"Issued {_date(doc.issued_at)}", align="R")
+        when = "Not issued" if doc.draft else f"Issued {_date(doc.issued_at)}"
+        self.cell(0, 4, when, align="R")
         self.set_draw_color(*RULE)
         self.line(15, 20, 195, 20)
         self.set_y(24)
@@ -122,12 +127,21 @@ class CertificatePDF(FPDF):
         self.line(15, self.get_y() - 1, 195, self.get_y() - 1)
         self.set_font("Helvetica", "", 7.5)
         self.set_text_color(*MUTED)
-        self.cell(
-            140,
-            4,
-            latin1(f"Verification code {doc.verification_code}  -  {doc.verify_url}"),
+        line = (
+            f"{DRAFT_MARK}: not signed, not numbered, not stored as issued"
+            if doc.draft
+            else f"Verification code {doc.verification_code}  -  {doc.verify_url}"
         )
+        self.cell(140, 4, latin1(line))
         self.cell(0, 4, f"Page {self.page_no()} of {{nb}}", align="R")
+
+    def _watermark(self) -> None:
+        """The draft mark across the middle of the page, in light grey under the content."""
+        self.set_font("Helvetica", "B", 54)
+        self.set_text_color(*WATERMARK)
+        with self.rotation(40, x=105, y=150):
+            self.text(105 - self.get_string_width(latin1(DRAFT_MARK)) / 2, 150, latin1(DRAFT_MARK))
+        self.set_text_color(*INK)
 
     # Building blocks ------------------------------------------------------------------
 
@@ -360,12 +374,26 @@ def _title_block(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     pdf.set_text_color(*INK)
     pdf.multi_cell(140, 7, latin1(doc.title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.ln(1)
+    by = f"{doc.issued_by.name} ({doc.issued_by.role.replace('_', ' ')})"
+    if doc.draft:
+        pdf.key_values(
+            [
+                ("Status", DRAFT_MARK),
+                ("Certificate number", "given at issue"),
+                ("Prepared", _date(doc.issued_at)),
+                ("Prepared by", by),
+            ],
+            key_width=34,
+            width=140,
+        )
+        pdf.ln(2)
+        return
     pdf.key_values(
         [
             ("Certificate number", f"{doc.number}"),
             ("Revision", str(doc.revision)),
             ("Issued", _date(doc.issued_at)),
-            ("Issued by", f"{doc.issued_by.name} ({doc.issued_by.role.replace('_', ' ')})"),
+            ("Issued by", by),
             ("Verification code", doc.verification_code),
             ("Verify at", doc.verify_url),
         ],
@@ -397,6 +425,7 @@ def _parties(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     pdf.key_values(
         [
             ("Laboratory", ", ".join(p for p in (doc.lab.name, doc.lab.address) if p)),
+            *([("Accreditation", doc.lab.accreditation)] if doc.lab.accreditation else []),
             ("Client", ", ".join(p for p in (doc.client.name, doc.client.address) if p)),
             ("Project", f"{doc.project_number}  {doc.project_name}"),
             ("Site", doc.site),
@@ -715,6 +744,14 @@ def _closing(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     for caution in doc.cautions:
         pdf.paragraph(f"- {caution}", size=8)
     pdf.heading("Authorisation")
+    if doc.draft:
+        pdf.paragraph(
+            f"{DRAFT_MARK}. Prepared by {doc.issued_by.name} on {_date(doc.issued_at)} to "
+            f"check before issue. It is not signed, carries no certificate number and is "
+            f"not held by {doc.lab.name} as issued.",
+            size=8,
+        )
+        return
     pdf.paragraph(
         f"Issued by {doc.issued_by.name} ({doc.issued_by.role.replace('_', ' ')}) for "
         f"{doc.lab.name} on {_date(doc.issued_at)}. This PDF is signed by the laboratory with "

@@ -14,7 +14,7 @@ made (the key history of service/certificates/signing.py)."""
 from __future__ import annotations
 
 import secrets
-from collections.abc import Mapping, Sequence
+from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -81,11 +81,13 @@ def _require_issuer(actor: User) -> None:
         )
 
 
-def current_tests(tests: Sequence[PermeabilityTest]) -> list[PermeabilityTest]:
-    """Per test series, the latest revision that is approved or issued."""
+def current_tests(
+    tests: Sequence[PermeabilityTest], states: Collection[str] = REPORTABLE
+) -> list[PermeabilityTest]:
+    """Per test series, the latest revision in `states` (by default approved or issued)."""
     latest: dict[tuple[int, int], PermeabilityTest] = {}
     for test in tests:
-        if test.state not in REPORTABLE:
+        if test.state not in states:
             continue
         key = (test.sample_id, test.series)
         if key not in latest or test.revision > latest[key].revision:
@@ -320,6 +322,46 @@ def issue_sample_certificate(
             apply_changes(session, test, {"state": TestState.SUPERSEDED}, actor_id=actor.id)
     _anchor(session, certificate, now)
     return certificate
+
+
+# Tests a draft may show: reviewed or on their way to review (the draft is what review checks).
+DRAFT_STATES = frozenset({TestState.SUBMITTED, TestState.APPROVED, TestState.ISSUED})
+
+
+def draft_sample_certificate(
+    session: Session, sample_id: int, *, actor: User, now: datetime | None = None
+) -> bytes:
+    """The sample's certificate as it would be issued now, as a watermarked draft PDF: not
+    numbered, not signed, nothing stored (no certificate row, no audit row, no checkpoint)."""
+    _require_issuer(actor)
+    sample = session.get(Sample, sample_id)
+    if sample is None:
+        raise NotFound(f"sample {sample_id} not found")
+    project = session.get(Project, sample.project_id)
+    assert project is not None
+    all_tests = session.exec(
+        select(PermeabilityTest).where(PermeabilityTest.sample_id == sample_id)
+    ).all()
+    tests = current_tests(all_tests, DRAFT_STATES)
+    if not tests:
+        raise InvalidTransition(
+            f"sample {sample.lab_id} has no submitted or approved test to show in a draft",
+            detail={"sample_id": sample_id},
+        )
+    document = build_document(
+        session,
+        kind=CertificateKind.SAMPLE,
+        project=project,
+        samples=[(sample, tests)],
+        number="",
+        revision=0,
+        verification_code="",
+        issued_at=now or utcnow(),
+        issued_by=actor,
+        key_id="",
+        draft=True,
+    )
+    return render_pdf(document)
 
 
 def _anchor(session: Session, certificate: Certificate, now: datetime) -> None:

@@ -188,7 +188,9 @@ def request_test(
     given, is the one the laboratory's scope sets for the standard."""
     sample = get_visible(session, Sample, sample_id, actor, "sample")
     if not may_request_tests(actor):
-        raise PermissionDenied("requesting a test needs a lab manager, reviewer or admin")
+        raise PermissionDenied(
+            "requesting a test needs reception, a lab manager, a reviewer or an admin"
+        )
     if sample.disposed_at is not None:
         raise Conflict(f"sample {sample.lab_id} was disposed of; no test can be requested on it")
     series = session.exec(
@@ -219,6 +221,14 @@ def request_test(
     if data.apparatus_ids:
         _set_apparatus(session, test, data.apparatus_ids, actor=actor)
     return test
+
+
+def request_tests(
+    session: Session, sample_ids: list[int], data: TestCreate, *, actor: User
+) -> list[PermeabilityTest]:
+    """The same test requested on several samples at once (all or none: the caller's
+    transaction holds them); each sample is checked as request_test checks one."""
+    return [request_test(session, sample_id, data, actor=actor) for sample_id in sample_ids]
 
 
 def _actions_for(

@@ -34,6 +34,8 @@ class Action(StrEnum):
 
 # Who requests tests, assigns them and sets their specification limit.
 PLANNERS = frozenset({Role.LAB_MANAGER, Role.ADMIN, Role.REVIEWER})
+# Who requests tests: the planners, and reception as the client's instructions arrive.
+REQUESTERS = PLANNERS | {Role.RECEPTION}
 # Who approves, sends back, issues and orders corrections.
 REVIEWERS = frozenset({Role.REVIEWER, Role.LAB_MANAGER})
 EDITABLE = frozenset({TestState.PLANNED, TestState.RUNNING})
@@ -59,7 +61,7 @@ def is_writer(test: PermeabilityTest, actor: User) -> bool:
 
 def may_request_tests(actor: User) -> bool:
     """Whether `actor` may request a test on a sample."""
-    return actor.role in PLANNERS
+    return actor.role in REQUESTERS
 
 
 def may_assign(actor: User) -> bool:

@@ -400,7 +400,7 @@ def _scoped(query: Any, user: User) -> Any:
     return query
 
 
-RECEIVERS = frozenset({Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
+RECEIVERS = frozenset({Role.RECEPTION, Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
 
 
 def may_receive(user: User) -> bool:

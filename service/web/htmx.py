@@ -21,8 +21,8 @@ from fastapi.templating import Jinja2Templates
 from starlette.datastructures import FormData
 
 from service import __version__
-from service.config import get_settings
-from service.db import PROJECT_ROOT
+from service.db import PROJECT_ROOT, session_scope
+from service.laboratory.service import accreditation_text, lab_settings
 from service.web.display import install as install_display_filters
 from service.web.rules_words import install as install_rules_words
 
@@ -75,6 +75,14 @@ def htmx_details(request: Request) -> HtmxDetails:
 HtmxDep = Annotated[HtmxDetails, Depends(htmx_details)]
 
 
+def lab_identity() -> dict[str, str]:
+    """The laboratory's name and accreditation for the page footer, read in a session of
+    its own (pages render with whatever context they built; the footer is on all of them)."""
+    with session_scope() as session:
+        settings = lab_settings(session)
+        return {"name": settings.name, "accreditation": accreditation_text(settings)}
+
+
 def _make_templates() -> Jinja2Templates:
     templates = Jinja2Templates(directory=PROJECT_ROOT / "templates")
     env = templates.env
@@ -82,7 +90,7 @@ def _make_templates() -> Jinja2Templates:
     install_rules_words(env.filters)
     env.globals["htmx_script"] = HTMX_SCRIPT
     env.globals["app_version"] = __version__
-    env.globals["lab_name"] = get_settings().lab_name
+    env.globals["lab_identity"] = lab_identity
     env.trim_blocks = True
     env.lstrip_blocks = True
     return templates

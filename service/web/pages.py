@@ -14,6 +14,7 @@ from service.accounts.models import AccessToken, User
 from service.accounts.service import revoke_token
 from service.accounts.tokens import find_live_token
 from service.common import Role, TokenKind
+from service.db import utcnow
 from service.deps import (
     SESSION_COOKIE,
     Authentication,
@@ -28,6 +29,7 @@ from service.deps import (
 from service.errors import NotAuthenticated, TooManyAttempts
 from service.lab_tests import service as lab_tests
 from service.projects.service import projects_with_sample_counts
+from service.queue import due_dates
 from service.samples.service import lookup_samples
 from service.web.htmx import redirect, render, safe_next
 
@@ -35,6 +37,7 @@ router = APIRouter(include_in_schema=False)
 
 # Main navigation per role; pages added later append here.
 NAV: dict[str, list[tuple[str, str]]] = {
+    Role.RECEPTION: [("/", "Home"), ("/reception", "Receive"), ("/projects", "Projects")],
     Role.TECHNICIAN: [("/", "My tests"), ("/reception", "Receive"), ("/bench", "Bench")],
     Role.REVIEWER: [
         ("/", "Home"),
@@ -58,6 +61,8 @@ NAV: dict[str, list[tuple[str, str]]] = {
         ("/projects", "Projects"),
         ("/apparatus", "Apparatus"),
         ("/scope", "Scope"),
+        ("/admin/users", "Users"),
+        ("/admin/lab", "Lab"),
     ],
     Role.CLIENT: [("/", "My projects")],
 }
@@ -66,6 +71,11 @@ NAV: dict[str, list[tuple[str, str]]] = {
 FLASHES: dict[str, tuple[str, str]] = {
     "signed-out": ("ok", "You are signed out."),
     "signed-in": ("ok", "You are signed in."),
+    "user-created": ("ok", "Account created. Pass the initial password on to the person."),
+    "user-saved": ("ok", "Account saved."),
+    "password-reset": ("ok", "Password reset. The person's sessions and API tokens were ended."),
+    "tests-requested": ("ok", "Tests requested on the ticked samples."),
+    "lab-saved": ("ok", "Laboratory settings saved. Certificates issued from now on show them."),
 }
 
 SEARCH_LIMIT = 50
@@ -192,7 +202,10 @@ def home(request: Request, user: OptionalUser, session: SessionDep) -> Response:
         return redirect(request, "/sign-in")
     context = layout_context(request, user)
     if user.role == Role.TECHNICIAN:
-        context["my_tests"] = lab_tests.assigned_tests(session, user)
+        my_tests = lab_tests.assigned_tests(session, user)
+        context["my_tests"] = my_tests
+        context["today"] = utcnow().date()
+        context["due"] = due_dates(session, [t.id for t, _ in my_tests if t.id], context["today"])
     elif user.role == Role.CLIENT:
         context["projects"] = projects_with_sample_counts(session, user=user)
     else:

@@ -16,8 +16,10 @@ from service.accounts.models import Organisation, User
 from service.accounts.service import list_organisations
 from service.common import LocationKind, OrganisationKind, TestState
 from service.deps import CurrentUser, LabStaff, Manager, SessionDep
+from service.errors import PermissionDenied, invalid
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.schemas import TestCreate
 from service.projects.service import (
     LocationCreate,
     ProjectCreate,
@@ -28,7 +30,8 @@ from service.projects.service import (
     list_projects,
     may_manage_projects,
 )
-from service.samples.service import list_samples, may_receive
+from service.samples.service import list_samples, may_receive, samples_of_project
+from service.web.entries import METHOD_CHOICES, STANDARD_CHOICES
 from service.web.htmx import PostedForm, redirect, render
 from service.web.pages import layout_context
 from service.web.reception import with_unit
@@ -160,6 +163,7 @@ def project_context(
     location_form: Mapping[str, str] | None = None,
     location_errors: Mapping[str, Any] | None = None,
     location_general: list[str] | None = None,
+    batch: Mapping[str, Any] | None = None,
     saved: str = "",
 ) -> dict[str, Any]:
     project = get_project(session, project_id, user=user)
@@ -199,6 +203,11 @@ def project_context(
         location_form=_location_form(location_form),
         location_errors=location_errors or {},
         location_general=location_general or [],
+        can_request_tests=not client_view and lab_tests.may_request_tests(user),
+        methods=METHOD_CHOICES,
+        standards=STANDARD_CHOICES,
+        batch={"chosen": set(), "method": "", "standard": "", "errors": {}, "general": []}
+        | dict(batch or {}),
         saved=saved,
     )
 
@@ -210,6 +219,48 @@ def project_page(
     """A project: its samples with their tests' state and k20, locations and exports."""
     context = project_context(request, session, user, project_id)
     return render(request, "projects/project.html", context, fragment="projects/_project.html")
+
+
+def _chosen_ids(posted: Any) -> list[int]:
+    """The ticked samples' ids (anything that is not an id is left out)."""
+    return [int(v) for v in posted.getlist("sample_ids") if str(v).strip().isdigit()]
+
+
+@router.post("/{project_id}/tests")
+def tests_request(
+    project_id: int, request: Request, user: CurrentUser, session: SessionDep, posted: PostedForm
+) -> Response:
+    """Request one test on every ticked sample of the project (all or none)."""
+    if not lab_tests.may_request_tests(user):
+        raise PermissionDenied(
+            "requesting a test needs reception, a lab manager, a reviewer or an admin"
+        )
+    project = get_project(session, project_id, user=user)
+    chosen = _chosen_ids(posted)
+    method = str(posted.get("method", "")).strip()
+    standard = str(posted.get("standard", "")).strip()
+    with attempt(session) as tried:
+        if not chosen:
+            raise invalid(
+                ("sample_ids",),
+                "tick at least one sample",
+                kind="missing",
+                accepted="one or more samples of this project",
+            )
+        assert project.id is not None
+        ours = {s.id for s in samples_of_project(session, project.id)}
+        if any(i not in ours for i in chosen):
+            raise invalid(("sample_ids",), "names samples that are not in this project")
+        payload = {"method": method} | ({"standard": standard} if standard else {})
+        lab_tests.request_tests(session, chosen, TestCreate.model_validate(payload), actor=user)
+    if not tried.refused:
+        return redirect(request, f"/projects/{project_id}?flash=tests-requested")
+    errors, general = tried.fields(simple_name(("sample_ids", "method", "standard")))
+    batch = {"chosen": set(chosen), "method": method, "standard": standard}
+    context = project_context(
+        request, session, user, project_id, batch=batch | {"errors": errors, "general": general}
+    )
+    return render(request, "projects/project.html", context, status_code=tried.status)
 
 
 @router.post("/{project_id}/locations")

@@ -26,9 +26,12 @@ from service.deps import Reception, SessionDep
 from service.errors import Conflict, FieldProblem, InvalidInput, Loc
 from service.exchange.files import FileTooLarge, Table, read_table, read_upload
 from service.exchange.imports import SCHEDULE_COLUMNS, SchedulePreview, check_schedule
+from service.lab_tests import service as lab_tests
+from service.lab_tests.schemas import TestCreate
 from service.projects.models import Location, Project
 from service.projects.service import get_project, list_locations, list_projects
 from service.samples.service import SampleBatch, check_samples, receive_samples_once
+from service.web.entries import METHOD_CHOICES, STANDARD_CHOICES
 from service.web.htmx import render
 from service.web.pages import layout_context
 from service.web.refusals import (
@@ -110,6 +113,9 @@ class ReceptionForm:
     rows: list[dict[str, str]] = field(default_factory=list)
     schedule: str = ""
     idempotency_key: str = field(default_factory=new_key)
+    # A test requested on every sample of the batch ("" = none), with its standard.
+    test_method: str = ""
+    test_standard: str = ""
 
     def filled(self) -> list[int]:
         """Rows with anything changed from a fresh row (blank rows are not received)."""
@@ -150,6 +156,8 @@ def read_form(form: Mapping[str, Any]) -> ReceptionForm:
         rows=rows,
         schedule=str(form.get("schedule", "")),
         idempotency_key=key or new_key(),
+        test_method=str(form.get("test_method", "")).strip(),
+        test_standard=str(form.get("test_standard", "")).strip(),
     )
 
 
@@ -248,6 +256,7 @@ def _rows_batch(form: ReceptionForm, outcome: Outcome) -> tuple[SampleBatch | No
 def check_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
     """Everything the save would refuse; stores nothing."""
     outcome = Outcome(checked=True)
+    _check_test_request(form, user, outcome)
     batch, indexes = _rows_batch(form, outcome)
     if batch is None or form.project_id is None:
         return outcome
@@ -265,9 +274,12 @@ def _save(
 ) -> None:
     assert form.project_id is not None
     with attempt(session) as tried:
-        _status, answer, _replayed = receive_samples_once(
+        _status, answer, replayed = receive_samples_once(
             session, form.project_id, batch, actor=user, idempotency_key=form.idempotency_key
         )
+        if form.test_method and not replayed:
+            ids = [s["id"] for s in answer["samples"]]
+            lab_tests.request_tests(session, ids, _test_request(form), actor=user)
     if not tried.refused:
         outcome.received = answer
     elif isinstance(tried.error, Conflict):
@@ -283,10 +295,38 @@ def _save(
         _rows_refused(outcome, tried.problems, indexes)
 
 
+def _test_request(form: ReceptionForm) -> TestCreate:
+    payload = {"method": form.test_method}
+    if form.test_standard:
+        payload["standard"] = form.test_standard
+    return TestCreate.model_validate(payload)
+
+
+def _check_test_request(form: ReceptionForm, user: User, outcome: Outcome) -> None:
+    """The test to request on each sample, refused beside its field before anything is saved."""
+    if not form.test_method:
+        return
+    if not lab_tests.may_request_tests(user):
+        outcome.general.append(
+            "Requesting tests is for reception, lab managers, reviewers and admins: the "
+            "samples can be received without one, and a lab manager requests them."
+        )
+        return
+    try:
+        _test_request(form)
+    except ValidationError as exc:
+        name = simple_name(["method", "standard"], {"method": "method"})
+        errors, general = form_errors(validation_refusal(exc).problems, name)
+        for key, error in errors.items():
+            outcome.errors["test_" + key] = error
+        outcome.general.extend(general)
+
+
 def save_rows(session: Session, form: ReceptionForm, user: User) -> Outcome:
     outcome = Outcome(checked=True)
+    _check_test_request(form, user, outcome)
     batch, indexes = _rows_batch(form, outcome)
-    if batch is not None:
+    if batch is not None and not outcome.refused:
         _save(session, form, batch, user, outcome, indexes)
     return outcome
 
@@ -341,8 +381,9 @@ def schedule_batch(preview: SchedulePreview, delivered_by: str) -> SampleBatch:
 
 def save_schedule(session: Session, form: ReceptionForm, user: User) -> Outcome:
     outcome = Outcome(checked=True)
+    _check_test_request(form, user, outcome)
     preview = _check_schedule(session, form, user, outcome)
-    if preview is None or preview.errors:
+    if preview is None or outcome.refused:
         return outcome
     batch = schedule_batch(preview, form.delivered_by.strip())
     _save(session, form, batch, user, outcome, list(range(len(preview.rows))))
@@ -434,6 +475,10 @@ def _context(
         preview_table=preview_table,
         preview_general=preview_general,
         labels_url="/samples/labels?ids=" + ",".join(str(i) for i in received_ids),
+        can_request_tests=lab_tests.may_request_tests(user),
+        test_methods=(("", "None: requested later"), *METHOD_CHOICES),
+        test_method_names=dict(METHOD_CHOICES),
+        standards=STANDARD_CHOICES,
     )
 
 
@@ -534,6 +579,7 @@ def reception_submit(
         if action == "save":
             outcome = save_schedule(session, form, user)
         else:
+            _check_test_request(form, user, outcome)
             _check_schedule(session, form, user, outcome)
         return _answer(request, _context(request, session, user, form, outcome), outcome)
     if action == "add_row":

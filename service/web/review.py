@@ -16,10 +16,14 @@ from starlette.datastructures import FormData
 from service.accounts.models import Organisation, User
 from service.accounts.service import names_of
 from service.audit.service import history
-from service.certificates.service import issue_sample_certificate, list_certificates
+from service.certificates.service import (
+    draft_sample_certificate,
+    issue_sample_certificate,
+    list_certificates,
+)
 from service.common import TestState
 from service.deps import SessionDep
-from service.errors import ServiceError
+from service.errors import PermissionDenied, ServiceError
 from service.lab_tests import service as lab_tests
 from service.lab_tests.reduction import reduce_stored, trial_notes
 from service.lab_tests.schemas import CorrectionRequest, SendBackRequest, SignOffRequest
@@ -363,6 +367,24 @@ def issue(
     if tried.refused:
         return _refused(request, session, user, test_id, forms, tried)
     return redirect(request, f"/tests/{test_id}/review?issued={certificate.id}")
+
+
+@router.get("/tests/{test_id}/review/draft.pdf")
+def draft_certificate(session: SessionDep, user: StaffUser, test_id: int) -> Response:
+    """The test's sample certificate as it would be issued now, marked DRAFT and unsigned;
+    nothing is stored (reviewers and lab managers, who issue)."""
+    if not lab_tests.may_review(user):
+        raise PermissionDenied("the draft certificate is for reviewers and lab managers")
+    test = lab_tests.get_test(session, test_id, actor=user)
+    pdf = draft_sample_certificate(session, test.sample_id, actor=user)
+    return Response(
+        pdf,
+        media_type="application/pdf",
+        headers={
+            "Content-Disposition": f'inline; filename="draft-sample-{test.sample_id}.pdf"',
+            "Cache-Control": "no-store",
+        },
+    )
 
 
 @router.post("/tests/{test_id}/review/correction")

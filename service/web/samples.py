@@ -99,10 +99,18 @@ def labels_page(
                 "qr": qr_svg(sample.lab_id),
             }
         )
+    # Back to the project the labels are for (reception's "print labels" comes from there).
+    only = next(iter(projects.values())) if len(projects) == 1 else None
     return render(
         request,
         "samples/labels.html",
-        layout_context(request, user, labels=labels),
+        layout_context(
+            request,
+            user,
+            labels=labels,
+            back_url=f"/projects/{only.id}" if only else "/projects",
+            back_label=f"project {only.number}" if only else "the projects",
+        ),
         fragment="samples/_labels.html",
     )
 
@@ -246,7 +254,9 @@ def test_request_submit(
     """Request a permeability test (lab managers, reviewers, admins); the project's specification
     limit applies. htmx gets the tests section back; a refusal keeps what was chosen."""
     if not lab_tests.may_request_tests(user):
-        raise PermissionDenied("requesting a test needs a lab manager, a reviewer or an admin")
+        raise PermissionDenied(
+            "requesting a test needs reception, a lab manager, a reviewer or an admin"
+        )
     values = _posted(posted, TEST_FIELDS)
     payload: dict[str, Any] = {"method": values["method"].strip()}
     if values["standard"].strip():

@@ -41,6 +41,7 @@ IDENTITIES = (
     "anonymous",
     "other_client",
     "client",
+    "reception",
     "technician",
     "reviewer",
     "lab_manager",
@@ -143,6 +144,7 @@ def clone_test(
 def build_proof(session: Session, client: TestClient) -> Proof:
     world = build_world(session)
     admin = make_user(session, role=Role.ADMIN, organisation=world.lab)
+    reception = make_user(session, role=Role.RECEPTION, organisation=world.lab)
     other_org = make_organisation(session, name="Fernbrook Levee Board (invented)")
     other_client = make_user(session, role=Role.CLIENT, organisation=other_org)
     second = make_sample(session, project=world.project, lab_id="26-0108")
@@ -165,6 +167,7 @@ def build_proof(session: Session, client: TestClient) -> Proof:
         record_created(session, sample, actor_id=world.technician.id)
     session.commit()
     users = {
+        "reception": reception,
         "technician": world.technician,
         "reviewer": world.reviewer,
         "lab_manager": world.manager,

@@ -26,12 +26,13 @@ from tests.certificates.arrange import trial_entries
 from tests.factories import make_test
 from tests.proof.conftest import IDENTITIES, PASSWORD, Proof
 
-STAFF = frozenset({"technician", "reviewer", "lab_manager", "admin"})
+STAFF = frozenset({"reception", "technician", "reviewer", "lab_manager", "admin"})
 SIGNED_IN = STAFF | {"client"}
 MANAGERS = frozenset({"lab_manager", "admin"})  # service.deps.Manager
-RECEPTION = frozenset({"technician", "lab_manager", "admin"})  # service.deps.Reception
+RECEPTION = frozenset({"reception", "technician", "lab_manager", "admin"})  # service.deps.Reception
 REVIEWERS = frozenset({"reviewer", "lab_manager"})  # service.deps.Reviewer
-PLANNERS = frozenset({"reviewer", "lab_manager", "admin"})  # request and assign tests
+PLANNERS = frozenset({"reviewer", "lab_manager", "admin"})  # assign tests, set limits
+REQUESTERS = PLANNERS | {"reception"}  # request tests (lab_tests.permissions.REQUESTERS)
 # Test data is written by the assigned technician or a lab manager (lab_tests.service).
 WRITERS = frozenset({"technician", "lab_manager"})
 ADMIN = frozenset({"admin"})
@@ -122,11 +123,11 @@ ACCESS: dict[str, Access] = {
     "POST /api/v1/imports/schedules": Access(RECEPTION),
     "GET /api/v1/queue": Access(STAFF),
     # tests and trials
-    "POST /api/v1/samples/{sample_id}/tests": Access(PLANNERS),
+    "POST /api/v1/samples/{sample_id}/tests": Access(REQUESTERS),
     "GET /api/v1/samples/{sample_id}/tests": _owned(SIGNED_IN),
     "GET /api/v1/tests/{test_id}": _owned(SIGNED_IN),
     # Planners change the request and conditions; the assigned technician the conditions.
-    "PATCH /api/v1/tests/{test_id}": Access(STAFF),
+    "PATCH /api/v1/tests/{test_id}": Access(PLANNERS | WRITERS),
     "POST /api/v1/tests/{test_id}/start": Access(WRITERS),
     "PATCH /api/v1/tests/{test_id}/specimen": Access(WRITERS),
     "POST /api/v1/tests/{test_id}/saturation": Access(WRITERS),
@@ -191,10 +192,20 @@ ACCESS: dict[str, Access] = {
     "POST /tests/{test_id}/review/send-back": _staff_page(REVIEWERS),
     "POST /tests/{test_id}/review/issue": _staff_page(REVIEWERS),
     "POST /tests/{test_id}/review/correction": _staff_page(REVIEWERS),
+    "GET /tests/{test_id}/review/draft.pdf": _staff_page(REVIEWERS),
+    # the admin's pages
+    "GET /admin/users": Access(ADMIN),
+    "POST /admin/users": Access(ADMIN),
+    "GET /admin/users/{user_id}": Access(ADMIN),
+    "POST /admin/users/{user_id}": Access(ADMIN),
+    "POST /admin/users/{user_id}/password": Access(ADMIN),
+    "GET /admin/lab": Access(ADMIN),
+    "POST /admin/lab": Access(ADMIN),
     "GET /samples/labels": Access(STAFF),
     "GET /samples/{sample_id}": _owned(SIGNED_IN),
     "POST /samples/{sample_id}/custody": Access(STAFF),
-    "POST /samples/{sample_id}/tests": Access(PLANNERS),
+    "POST /samples/{sample_id}/tests": Access(REQUESTERS),
+    "POST /projects/{project_id}/tests": Access(REQUESTERS),
     "GET /tests/{test_id}": _owned(SIGNED_IN),
     "POST /tests/{test_id}/specimen": Access(WRITERS),
     "GET /tests/{test_id}/permeameter": Access(STAFF),
@@ -254,7 +265,7 @@ Request = dict[str, Any]
 
 
 def _test_id_for(key: str, proof: Proof) -> int | None:
-    if key.endswith(("/approve", "/send-back", "/review")):
+    if key.endswith(("/approve", "/send-back", "/review", "/draft.pdf")):
         return proof.submitted.id
     if key.endswith(("/corrections", "/recompute")):
         return proof.world.test.id
@@ -514,6 +525,36 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
         "POST /projects/{project_id}/series": lambda: {"data": {"name": f"S{next(_serial)}"}},
         "POST /tests/{test_id}/submit": lambda: {"data": {"submit.password": PASSWORD}},
         "POST /tests/{test_id}/review/approve": lambda: {"data": {"password": PASSWORD}},
+        "POST /projects/{project_id}/tests": lambda: {
+            "data": {"sample_ids": str(world.sample.id), "method": "falling_head"}
+        },
+        "POST /admin/users": lambda: {
+            "data": {
+                "organisation_id": str(world.lab.id),
+                "role": "reception",
+                "full_name": "New Person",
+                "email": f"new{next(_serial)}@example.test",
+                "password": "a long enough passphrase 9",
+            }
+        },
+        "POST /admin/users/{user_id}": lambda: {
+            "data": {
+                "full_name": "Renamed Person",
+                "role": "technician",
+                "is_active": "yes",
+                "version": str(proof.fresh_version("user")),
+            }
+        },
+        "POST /admin/users/{user_id}/password": lambda: {
+            "data": {
+                "new_password": "another long passphrase 7",
+                "repeat_password": "another long passphrase 7",
+                "version": str(proof.fresh_version("user")),
+            }
+        },
+        "POST /admin/lab": lambda: {
+            "data": {"name": "Harrowgate Soil Testing (invented)", "accreditation_number": "T-1"}
+        },
     }
 
 
