@@ -64,7 +64,9 @@ def _check_technician(session: Session, user_id: int) -> None:
         )
 
 
-def _check_apparatus(session: Session, apparatus_ids: list[int]) -> list[int]:
+def _check_apparatus(
+    session: Session, apparatus_ids: list[int], test: PermeabilityTest
+) -> list[int]:
     wanted: list[int] = []
     permeameters = []
     problems: list[FieldProblem] = []
@@ -80,6 +82,9 @@ def _check_apparatus(session: Session, apparatus_ids: list[int]) -> list[int]:
         else:
             if item.kind in reduction.PERMEAMETERS:
                 permeameters.append(item.identifier)
+                misfit = reduction.permeameter_misfit(item, test)
+                if misfit:
+                    problems.append(FieldProblem(loc, misfit, apparatus_id))
             if apparatus_id not in wanted:
                 wanted.append(apparatus_id)
     if len(permeameters) > 1:
@@ -100,7 +105,7 @@ def _set_apparatus(
     session: Session, test: PermeabilityTest, apparatus_ids: list[int], *, actor: User
 ) -> bool:
     assert test.id is not None
-    wanted = _check_apparatus(session, apparatus_ids)
+    wanted = _check_apparatus(session, apparatus_ids, test)
     current = [a.id for a in apparatus_of(session, test.id) if a.id is not None]
     if sorted(current) == sorted(wanted):
         return False
