@@ -16,7 +16,7 @@ from sqlmodel import Session, col, select
 from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
 from service.common import CertificateKind, OrganisationKind, Preparation
-from service.config import get_settings
+from service.config import get_settings, public_base_url
 from service.lab_tests.models import (
     PermeabilityTest,
     SaturationStep,
@@ -461,6 +461,11 @@ def lab_party(session: Session) -> Party:
     return Party(name=lab.name, address=lab.address)
 
 
+def verify_url(verification_code: str) -> str:
+    """Where a certificate is checked by its code: the link printed and in the QR code."""
+    return f"{public_base_url()}/verify/{verification_code}"
+
+
 def build_document(
     session: Session,
     *,
@@ -478,14 +483,13 @@ def build_document(
 ) -> CertificateDocument:
     """Gather everything a certificate shows; `samples` pairs each sample with its tests."""
     client = session.get(Organisation, project.client_id)
-    base_url = get_settings().public_base_url.rstrip("/")
     spec_text = project.spec_k_max_text
     return CertificateDocument(
         kind=kind,
         number=number,
         revision=revision,
         verification_code=verification_code,
-        verify_url=f"{base_url}/verify/{verification_code}",
+        verify_url=verify_url(verification_code),
         issued_at=issued_at,
         issued_by=SignOffLine(
             meaning="issued",

@@ -320,7 +320,7 @@ def permeameter_misfit(item: Apparatus, test: PermeabilityTest) -> str | None:
     recorded = {e: str(getattr(item, c) or "") for e, c in REGISTER_GEOMETRY.items()}
     if not any(recorded.values()):
         return None
-    typed = test.options.get("apparatus", {}) if isinstance(test.options, dict) else {}
+    typed = test.options.get("apparatus", {})
     for need in method.apparatus_needs:
         if not any(recorded.get(e) or typed.get(e) for e in need.one_of):
             wanted = catalogue.need_text(need)
