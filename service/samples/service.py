@@ -257,7 +257,7 @@ def receive_samples(
                 problems.append(
                     FieldProblem(
                         (*loc, "client_sample_id"),
-                        "appears more than once in this batch",
+                        f"appears more than once in this batch (also sample {seen_ids[key] + 1})",
                         row.client_sample_id,
                         "each client sample ID once per batch",
                         "duplicate",
