@@ -10,12 +10,10 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from sqlmodel import Session, col, select
+from sqlmodel import Session
 
-from service.common import TestState
 from service.demo import DEMO_PASSWORDS, load_demo
-from service.lab_tests.models import PermeabilityTest
-from tests.browser.conftest import PHONE, TABLET
+from tests.browser.conftest import TABLET
 
 pytestmark = pytest.mark.browser
 
