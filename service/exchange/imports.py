@@ -439,7 +439,8 @@ def _first_row(preview: SchedulePreview, at: int, key: str) -> int:
     """The file row of the first row that has the same `key` value as row `at` (letter case
     ignored, as the duplicate check does)."""
     value = str(preview.rows[at].get(key, "")).casefold()
-    return next(row["row"] for row in preview.rows if str(row.get(key, "")).casefold() == value)
+    rows = (row["row"] for row in preview.rows if str(row.get(key, "")).casefold() == value)
+    return int(next(rows))
 
 
 def _batch(preview: SchedulePreview, received_at: Any, delivered_by: str) -> Any:

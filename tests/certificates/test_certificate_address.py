@@ -33,15 +33,15 @@ def test_production_refuses_to_start_without_a_public_address(
 ) -> None:
     monkeypatch.delenv("PUBLIC_BASE_URL", raising=False)
     with pytest.raises(ValidationError, match="PUBLIC_BASE_URL is unset"):
-        Settings(_env_file=None, environment="production", secret_key=REAL_SECRET)  # type: ignore[call-arg]
+        Settings(_env_file=None, environment="production", secret_key=REAL_SECRET)
     with pytest.raises(ValidationError, match="is not an address"):
-        Settings(  # type: ignore[call-arg]
+        Settings(
             _env_file=None,
             environment="production",
             secret_key=REAL_SECRET,
             public_base_url="seepline.example-lab.test",
         )
-    named = Settings(  # type: ignore[call-arg]
+    named = Settings(
         _env_file=None,
         environment="production",
         secret_key=REAL_SECRET,
