@@ -258,6 +258,9 @@ def update_test(
     if Action.SET_LIMIT in _actions_for(test, columns, fields):
         require(test, actor, Action.SET_LIMIT)
     changed = apply_changes(session, test, columns, actor_id=actor.id)
+    if apparatus_ids is None and {"method", "standard"} & fields.keys():
+        # the permeameter kept must fit the new method and standard too
+        _check_apparatus(session, [a.id for a in apparatus_of(session, test.id) if a.id], test)
     if apparatus_ids is not None and _set_apparatus(session, test, apparatus_ids, actor=actor):
         if not changed:
             test.version += 1

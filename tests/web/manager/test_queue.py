@@ -12,8 +12,10 @@ from sqlmodel import Session
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind, Role
 from service.db import utcnow
+from service.errors import InvalidInput
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.schemas import TestUpdate
 from tests.factories import make_organisation, make_project, make_user
 from tests.web.manager.conftest import HTMX, Lab, new_test, signed_in
 
@@ -410,3 +412,16 @@ def test_the_assign_link_scrolls_its_panel_into_view(
     assert 'hx-target="#assign-slot" hx-swap="innerHTML show:top"' in page.text
     fragment = web_client.get(f"/tests/{test.id}/assign", headers=HTMX)
     assert re.search(r'<select id="assign-technician-\d+"[^>]*autofocus', fragment.text)
+
+
+def test_a_new_standard_must_fit_the_permeameter_kept(session: Session, lab: Lab) -> None:
+    # ASTM D5856 is the rigid-wall compaction-mold method (its title); PRM-T1 is flexible.
+    test = new_test(session, lab)
+    assert test.id is not None
+    with pytest.raises(InvalidInput, match="PRM-T1"):
+        lab_tests.update_test(
+            session,
+            test.id,
+            TestUpdate(version=test.version, standard="ASTM D5856"),
+            actor=lab.manager,
+        )
