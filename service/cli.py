@@ -156,17 +156,8 @@ def _migrate(_args: argparse.Namespace) -> int:
     return 0
 
 
-def served_address(host: str, port: int) -> str:
-    """The address `seepline serve` answers on, as a browser on this machine reaches it."""
-    if host in ("0.0.0.0", "::", ""):
-        host = "127.0.0.1"
-    elif ":" in host:
-        host = f"[{host}]"
-    return f"http://{host}:{port}"
-
-
 def _load_demo(_args: argparse.Namespace) -> int:
-    from service.config import get_settings
+    from service.config import get_settings, served_address
     from service.db import session_scope
     from service.demo import DEMO_PASSWORDS, load_demo
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import secrets
+from contextvars import ContextVar
 from functools import lru_cache
 from pathlib import Path
 from typing import Literal
@@ -24,7 +25,10 @@ class Settings(BaseSettings):
     secret_key: str = ""
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=1, le=65535)
-    public_base_url: str = "http://127.0.0.1:8000"
+    # The address clients reach the service at, printed on certificates and in their QR
+    # codes. Empty (development, test): the address each request was served at; production
+    # refuses to start without it.
+    public_base_url: str = ""
     # Argon2 work factors: the library defaults in production, cheaper in tests.
     argon2_time_cost: int = Field(default=3, ge=1)
     argon2_memory_cost_kib: int = Field(default=65536, ge=8)
@@ -71,6 +75,23 @@ class Settings(BaseSettings):
             )
         return self
 
+    @model_validator(mode="after")
+    def _public_address_is_named(self) -> Settings:
+        address = self.public_base_url.strip()
+        if address and not address.startswith(("http://", "https://")):
+            raise ValueError(
+                f"PUBLIC_BASE_URL={address!r} is not an address; give it as "
+                "https://seepline.example-lab.test (scheme and host, no path needed)"
+            )
+        if self.environment == "production" and not address:
+            raise ValueError(
+                "PUBLIC_BASE_URL is unset; production needs the address clients reach the "
+                "service at (for example https://seepline.example-lab.test): it is printed on "
+                "every certificate and in its QR code"
+            )
+        self.public_base_url = address.rstrip("/")
+        return self
+
     @property
     def trusted_proxies(self) -> list[str]:
         return [part.strip() for part in self.forwarded_allow_ips.split(",") if part.strip()]
@@ -95,3 +116,25 @@ def _development_secret() -> str:
 @lru_cache
 def get_settings() -> Settings:
     return Settings()
+
+
+# The base URL the current request was served at (set per request by the app's
+# ServedAddress middleware); what links use in development when PUBLIC_BASE_URL is unset.
+served_base_url: ContextVar[str] = ContextVar("served_base_url", default="")
+
+
+def public_base_url() -> str:
+    """The address printed on certificates and in links sent out: PUBLIC_BASE_URL when set
+    (always in production), else the address this request was served at, else host:port."""
+    settings = get_settings()
+    served = served_base_url.get().rstrip("/")
+    return settings.public_base_url or served or served_address(settings.host, settings.port)
+
+
+def served_address(host: str, port: int) -> str:
+    """The address `seepline serve` answers on, as a browser on this machine reaches it."""
+    if host in ("0.0.0.0", "::", ""):
+        host = "127.0.0.1"
+    elif ":" in host:
+        host = f"[{host}]"
+    return f"http://{host}:{port}"

@@ -9,16 +9,17 @@ from contextlib import asynccontextmanager
 from typing import Any
 
 import sqlalchemy as sa
-from fastapi import APIRouter, FastAPI
+from fastapi import APIRouter, FastAPI, Request
 from fastapi.responses import JSONResponse
 from fastapi.staticfiles import StaticFiles
+from starlette.types import ASGIApp, Receive, Scope, Send
 from uvicorn.middleware.proxy_headers import ProxyHeadersMiddleware
 
 import service.api
 import service.web
 from service import __version__
 from service.api.problems import install_problem_details
-from service.config import get_settings
+from service.config import get_settings, served_base_url
 from service.db import PROJECT_ROOT, current_revision, get_engine, head_revision, require_migrated
 from service.security import install_security
 from service.stored_text import install as check_stored_text
@@ -49,10 +50,29 @@ def create_app() -> FastAPI:
     install_problem_details(app)  # every refusal as RFC 9457 problem details ...
     install_web_error_handling(app)  # ... except on pages, which get HTML errors
     install_security(app)  # after: its validation handler wraps the one installed before
+    app.add_middleware(ServedAddress)  # inside the proxy headers: it sees the client's scheme
     proxies = get_settings().trusted_proxies
     if proxies:  # outermost: every part of the app sees the client's own address
         app.add_middleware(ProxyHeadersMiddleware, trusted_hosts=proxies)
     return app
+
+
+class ServedAddress:
+    """Remember the base URL each request was served at (scheme, host and root path as the
+    client used them) for links printed in development, where PUBLIC_BASE_URL is unset."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        token = served_base_url.set(str(Request(scope).base_url))
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            served_base_url.reset(token)
 
 
 def _add_routes(app: FastAPI) -> None:

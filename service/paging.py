@@ -41,6 +41,13 @@ class KeysetPage(Page[ItemT], Generic[ItemT]):
     )
 
 
+def contains_pattern(text: str) -> str:
+    """A LIKE pattern (escape character backslash) that finds `text` anywhere, as typed:
+    % and _ are matched literally, not as wildcards."""
+    escaped = text.strip().lower().replace("\\", "\\\\").replace("%", "\\%")
+    return "%" + escaped.replace("_", "\\_") + "%"
+
+
 def count_of(session: Session, query: SelectOfScalar[Any]) -> int:
     """How many rows `query` matches (ordering dropped)."""
     counted = select(func.count()).select_from(query.order_by(None).subquery())

@@ -226,7 +226,8 @@ def _own_origin(scope: Scope) -> set[str]:
     scheme = scope.get("scheme", "http")
     origins = {f"{scheme}://{headers.get('host', '')}".lower()}
     public = urlsplit(get_settings().public_base_url)
-    origins.add(f"{public.scheme}://{public.netloc}".lower())
+    if public.netloc:
+        origins.add(f"{public.scheme}://{public.netloc}".lower())
     return origins
 
 

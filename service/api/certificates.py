@@ -12,6 +12,7 @@ from pydantic import BaseModel, Field
 from sqlmodel import Session
 
 from service.api.paging import Paging
+from service.certificates.document import verify_url
 from service.certificates.models import Certificate
 from service.certificates.service import (
     CertificateStatus,
@@ -104,10 +105,9 @@ class UploadVerificationRead(BaseModel):
 
 def certificate_read(session: Session, certificate: Certificate) -> CertificateRead:
     assert certificate.id is not None
-    base_url = get_settings().public_base_url.rstrip("/")
     return CertificateRead(
         **certificate.model_dump(exclude={"pdf"}),
-        verify_url=f"{base_url}/verify/{certificate.verification_code}",
+        verify_url=verify_url(certificate.verification_code),
         pdf_url=f"/api/v1/certificates/{certificate.id}/pdf",
         test_ids=[t.id for t in tests_of(session, certificate) if t.id is not None],
     )

@@ -17,7 +17,7 @@ from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
 from service.certificates.series import SeriesSection, build_series_sections
 from service.common import CertificateKind, Preparation
-from service.config import get_settings
+from service.config import public_base_url
 from service.lab_tests.models import (
     PermeabilityTest,
     SaturationStep,
@@ -473,6 +473,11 @@ def lab_party(session: Session) -> Party:
     )
 
 
+def verify_url(verification_code: str) -> str:
+    """Where a certificate is checked by its code: the link printed and in the QR code."""
+    return f"{public_base_url()}/verify/{verification_code}"
+
+
 def build_document(
     session: Session,
     *,
@@ -491,14 +496,13 @@ def build_document(
 ) -> CertificateDocument:
     """Gather everything a certificate shows; `samples` pairs each sample with its tests."""
     client = session.get(Organisation, project.client_id)
-    base_url = get_settings().public_base_url.rstrip("/")
     spec_text = project.spec_k_max_text
     return CertificateDocument(
         kind=kind,
         number=number,
         revision=revision,
         verification_code=verification_code,
-        verify_url="" if draft else f"{base_url}/verify/{verification_code}",
+        verify_url="" if draft else verify_url(verification_code),
         issued_at=issued_at,
         issued_by=SignOffLine(
             meaning="issued",

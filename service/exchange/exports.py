@@ -18,10 +18,9 @@ from sqlmodel import Session, SQLModel, col, select
 
 from service.access import get_visible, is_client
 from service.accounts.models import Organisation, User
-from service.certificates.document import compliance_of
+from service.certificates.document import compliance_of, verify_url
 from service.certificates.models import Certificate, CertificateTest
 from service.common import CertificateState, TestState
-from service.config import get_settings
 from service.custody.models import CustodyEvent
 from service.db import utcnow
 from service.lab_tests import models as tables
@@ -337,7 +336,6 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
         .order_by(col(CustodyEvent.seq))
     ).all():
         custody.setdefault(event.sample_id, []).append(event)
-    base_url = get_settings().public_base_url.rstrip("/")
     certificates = session.exec(
         select(Certificate)
         .where(Certificate.project_id == project.id)
@@ -405,7 +403,7 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
                 **_dump(c, exclude={"pdf"}),
                 "test_ids": sorted(certificate_tests.get(c.id or 0, [])),
                 "is_current": c.state == CertificateState.ISSUED,
-                "verify_url": f"{base_url}/verify/{c.verification_code}",
+                "verify_url": verify_url(c.verification_code),
                 "pdf_url": f"/api/v1/certificates/{c.id}/pdf",
             }
             for c in certificates

@@ -426,12 +426,21 @@ def _reception_problems(
             key = str(loc[2])
             number = preview.rows[at]["row"]
             column = headers.get(key, key)
-            out.append(
-                cell_problem(number, column, item.value, item.reason, item.accepted, item.kind)
-            )
+            reason = item.reason
+            if item.kind == "duplicate":
+                reason = f"appears more than once: is also row {_first_row(preview, at, key)}"
+            out.append(cell_problem(number, column, item.value, reason, item.accepted, item.kind))
         else:
             out.append(item)
     return out
+
+
+def _first_row(preview: SchedulePreview, at: int, key: str) -> int:
+    """The file row of the first row that has the same `key` value as row `at` (letter case
+    ignored, as the duplicate check does)."""
+    value = str(preview.rows[at].get(key, "")).casefold()
+    rows = (row["row"] for row in preview.rows if str(row.get(key, "")).casefold() == value)
+    return int(next(rows))
 
 
 def _batch(preview: SchedulePreview, received_at: Any, delivered_by: str) -> Any:
@@ -450,9 +459,12 @@ def check_schedule(
     received_at: Any = None,
     delivered_by: str = "",
 ) -> SchedulePreview:
-    """Everything `save_schedule` would refuse, without storing anything."""
+    """Everything `save_schedule` would refuse, without storing anything, in one pass: the
+    rows whose cells read are checked against the project (locations, depth order,
+    duplicates) even when other rows are refused, so no row shows as ready that a second
+    check would refuse."""
     preview = read_schedule(table)
-    if preview.errors:
+    if not preview.rows:
         return preview
     headers = {_split_header(h)[0]: h for h in table.header}
     try:

@@ -65,7 +65,9 @@ def _check_technician(session: Session, user_id: int) -> None:
         )
 
 
-def _check_apparatus(session: Session, apparatus_ids: list[int]) -> list[int]:
+def _check_apparatus(
+    session: Session, apparatus_ids: list[int], test: PermeabilityTest
+) -> list[int]:
     wanted: list[int] = []
     permeameters = []
     problems: list[FieldProblem] = []
@@ -81,6 +83,9 @@ def _check_apparatus(session: Session, apparatus_ids: list[int]) -> list[int]:
         else:
             if item.kind in reduction.PERMEAMETERS:
                 permeameters.append(item.identifier)
+                misfit = reduction.permeameter_misfit(item, test)
+                if misfit:
+                    problems.append(FieldProblem(loc, misfit, apparatus_id))
             if apparatus_id not in wanted:
                 wanted.append(apparatus_id)
     if len(permeameters) > 1:
@@ -101,7 +106,7 @@ def _set_apparatus(
     session: Session, test: PermeabilityTest, apparatus_ids: list[int], *, actor: User
 ) -> bool:
     assert test.id is not None
-    wanted = _check_apparatus(session, apparatus_ids)
+    wanted = _check_apparatus(session, apparatus_ids, test)
     current = [a.id for a in apparatus_of(session, test.id) if a.id is not None]
     if sorted(current) == sorted(wanted):
         return False
@@ -271,6 +276,9 @@ def update_test(
     if Action.SET_LIMIT in _actions_for(test, columns, fields):
         require(test, actor, Action.SET_LIMIT)
     changed = apply_changes(session, test, columns, actor_id=actor.id)
+    if apparatus_ids is None and {"method", "standard"} & fields.keys():
+        # the permeameter kept must fit the new method and standard too
+        _check_apparatus(session, [a.id for a in apparatus_of(session, test.id) if a.id], test)
     if apparatus_ids is not None and _set_apparatus(session, test, apparatus_ids, actor=actor):
         if not changed:
             test.version += 1

@@ -94,6 +94,7 @@ __all__ = [
     "input_hash",
     "label",
     "label_of",
+    "permeameter_misfit",
     "reduce_payload",
     "reduce_request",
     "reduce_stored",
@@ -487,6 +488,47 @@ def specimen_entries(specimen: Specimen | None) -> dict[str, Any]:
     if specimen.stiff_material:
         out["stiff_material"] = True
     return out
+
+
+def _wall(kind: str) -> str:
+    """The catalogue's permeameter kind of a register kind ('rigid_wall_permeameter' ->
+    'rigid_wall'); empty for an item that is not a permeameter."""
+    wall = kind.removesuffix("_permeameter")
+    return wall if wall in catalogue.permeameter_ids() else ""
+
+
+def permeameter_misfit(item: Apparatus, test: PermeabilityTest) -> str | None:
+    """Why a permeameter of the register does not fit the test's standard and method, in
+    words naming both, or None when it fits (or is not a permeameter).
+
+    The standard names the wall (catalogue ``Standard.wall``: flexible, rigid or either);
+    the method names the geometry it needs (``Method.apparatus_needs``). A register item that
+    records some geometry but none a need of the method accepts (and the test does not type
+    it either) is a permeameter built for another method: a constant-head cell with manometer
+    ports and no standpipe cannot run a falling-head test."""
+    wall = _wall(item.kind)
+    if not wall:
+        return None
+    name = f"{item.identifier} ({item.kind.replace('_', '-', 1).replace('_', ' ')})"
+    standard = next((s for s in catalogue.STANDARDS if s.id == test.standard), None)
+    if standard is not None and standard.wall not in ("either", wall.removesuffix("_wall")):
+        return f"{name} does not fit {standard.id}, which uses a {standard.wall}-wall permeameter."
+    try:
+        method = catalogue.method(test.method)
+    except KeyError:
+        return None
+    recorded = {e: str(getattr(item, c) or "") for e, c in REGISTER_GEOMETRY.items()}
+    if not any(recorded.values()):
+        return None
+    typed = test.options.get("apparatus", {})
+    for need in method.apparatus_needs:
+        if not any(recorded.get(e) or typed.get(e) for e in need.one_of):
+            wanted = catalogue.need_text(need)
+            return (
+                f"{name} does not fit a {method.name.lower()} test: the register gives it no "
+                f"{wanted}. Choose a permeameter built for this method."
+            )
+    return None
 
 
 def apparatus_entries(permeameter: Apparatus | None) -> dict[str, Any]:

@@ -12,7 +12,7 @@ from service.accounts.models import Organisation, User
 from service.audit.service import apply_changes, record_created
 from service.common import LocationKind, OrganisationKind, Role
 from service.errors import Conflict, NotFound, invalid, require_version
-from service.paging import paginate
+from service.paging import contains_pattern, paginate
 from service.projects.models import Location, Project
 from service.quantities import CONDUCTIVITY, LENGTH, typed
 from service.samples.models import Sample
@@ -171,9 +171,7 @@ def list_projects(
     if client_id is not None:
         query = query.where(Project.client_id == client_id)
     if search:
-        # The text is searched for as typed: % and _ are not wildcards here.
-        escaped = search.strip().lower().replace("\\", "\\\\").replace("%", "\\%")
-        pattern = "%" + escaped.replace("_", "\\_") + "%"
+        pattern = contains_pattern(search)
         query = query.where(
             col(Project.number).ilike(pattern, escape="\\")
             | col(Project.name).ilike(pattern, escape="\\")

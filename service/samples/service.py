@@ -23,7 +23,7 @@ from service.db import utcnow
 from service.errors import FieldProblem, InvalidInput, NotFound, invalid, require_version
 from service.idempotency import service as idempotency
 from service.lab_tests.models import PermeabilityTest
-from service.paging import Page, paginate
+from service.paging import Page, contains_pattern, paginate
 from service.projects.models import Location, Project
 from service.projects.service import get_location, get_project
 from service.quantities import LENGTH, typed
@@ -257,7 +257,7 @@ def receive_samples(
                 problems.append(
                     FieldProblem(
                         (*loc, "client_sample_id"),
-                        "appears more than once in this batch",
+                        f"appears more than once in this batch (also sample {seen_ids[key] + 1})",
                         row.client_sample_id,
                         "each client sample ID once per batch",
                         "duplicate",
@@ -482,6 +482,41 @@ def lookup_samples(
         )
     query = query.order_by(col(Sample.received_at).desc(), col(Sample.id).desc())
     return paginate(session, query, limit=limit, offset=offset)
+
+
+def search_samples(
+    session: Session, text: str, *, user: User, limit: int
+) -> list[tuple[Sample, str]]:
+    """Samples the user may see whose lab ID, client sample ID, project number or the
+    number of a certificate reporting them contains `text` (letter case ignored, % and _
+    literal), newest first, each with its project's number."""
+    pattern = contains_pattern(text)
+
+    def like(column: Any) -> Any:
+        return col(column).ilike(pattern, escape="\\")
+
+    certified = (
+        select(PermeabilityTest.sample_id)
+        .join(CertificateTest, col(CertificateTest.test_id) == col(PermeabilityTest.id))
+        .join(Certificate, col(Certificate.id) == col(CertificateTest.certificate_id))
+        .where(like(Certificate.number))
+    )
+    query = (
+        select(Sample, Project.number)
+        .join(Project, col(Project.id) == col(Sample.project_id))
+        .where(
+            sa.or_(
+                like(Sample.lab_id),
+                like(Sample.client_sample_id),
+                like(Project.number),
+                col(Sample.id).in_(certified),
+            )
+        )
+    )
+    if is_client(user):
+        query = query.where(col(Project.client_id) == user.organisation_id)
+    query = query.order_by(col(Sample.received_at).desc(), col(Sample.id).desc()).limit(limit)
+    return [(sample, number) for sample, number in session.exec(query).all()]
 
 
 def update_sample(session: Session, sample_id: int, data: SampleUpdate, *, actor: User) -> Sample:

@@ -30,7 +30,7 @@ from service.errors import NotAuthenticated, TooManyAttempts
 from service.lab_tests import service as lab_tests
 from service.projects.service import projects_with_sample_counts
 from service.queue import due_dates
-from service.samples.service import lookup_samples
+from service.samples.service import lookup_samples, search_samples
 from service.web.htmx import redirect, render, safe_next
 
 router = APIRouter(include_in_schema=False)
@@ -225,18 +225,19 @@ def search(
     session: SessionDep,
     q: Annotated[str, Query(max_length=100)] = "",
 ) -> Response:
-    """Open the sample a typed or scanned ID names; several matches are listed, none says so.
+    """Open the sample a typed or scanned ID names; else the samples whose lab ID, client
+    sample ID, project number or certificate number contains the text (several are listed,
+    none says so).
 
     A GET, not a POST: a search changes nothing and its URL can be bookmarked or shared.
     """
     text = q.strip()
-    samples = (
-        lookup_samples(session, text, user=user, limit=SEARCH_LIMIT, offset=0)[0] if text else []
-    )
-    exact = [s for s in samples if s.lab_id.lower() == text.lower()]
-    if len(exact) == 1 or len(samples) == 1:
-        sample = exact[0] if exact else samples[0]
-        return redirect(request, f"/samples/{sample.id}")
+    exact = lookup_samples(session, text, user=user, limit=2, offset=0)[0] if text else []
+    if len(exact) == 1:
+        return redirect(request, f"/samples/{exact[0].id}")
+    samples = search_samples(session, text, user=user, limit=SEARCH_LIMIT) if text else []
+    if len(samples) == 1:
+        return redirect(request, f"/samples/{samples[0][0].id}")
     context = layout_context(request, user, search_query=text, samples=samples)
     return render(
         request,

@@ -1,4 +1,5 @@
-"""Server-rendered SVG plots (no JavaScript): ln(head) against time, k per trial, k against depth.
+"""Server-rendered SVG plots (no JavaScript): ln(head) against time (a logged run, or each
+falling-head trial), k per trial, k against time, k against depth.
 
 Pure functions returning SVG text; nothing here reads the database. The fitted line of
 ln(head) against time is the engine's own regression (through the lab-tests door). Every
@@ -158,7 +159,9 @@ def _f(value: float) -> str:
 
 
 def _text(x: float, y: float, text: str, **attrs: str) -> str:
-    extra = "".join(f' {key.replace("_", "-")}="{escape(val)}"' for key, val in attrs.items())
+    extra = "".join(
+        f' {key.rstrip("_").replace("_", "-")}="{escape(val)}"' for key, val in attrs.items()
+    )
     return f'<text x="{_f(x)}" y="{_f(y)}"{extra}>{escape(text)}</text>'
 
 
@@ -382,6 +385,7 @@ def k_per_trial_svg(
     plot_id: str = "k-per-trial",
     title: str = "Hydraulic conductivity of each trial",
     width: int = WIDTH,
+    numbers: Sequence[int] | None = None,
 ) -> str:
     """k at the reference temperature for each trial, the acceptance band and the limit.
 
@@ -392,11 +396,16 @@ def k_per_trial_svg(
     band : (low, high) acceptance band [m/s]; default ±band_fraction of the mean of `used`
     spec_limit : the project's specification limit on k [m/s], drawn as a line
     width : drawing width [px]; narrower for a side panel
+    numbers : the trial number shown under each value (default 1, 2, ...): the numbers of
+        the table, so trials 2-5 stay 2-5 when trial 1 is excluded
     """
     if not k_values:
         raise ValueError("k_per_trial_svg needs at least one k value")
     if any(k <= 0 for k in k_values):
         raise ValueError("k values must be greater than zero for a log axis")
+    if numbers is not None and len(numbers) != len(k_values):
+        raise ValueError("k_per_trial_svg needs one trial number per k value")
+    shown = list(numbers) if numbers is not None else list(range(1, len(k_values) + 1))
     used_set = set(range(len(k_values)) if used is None else used)
     used_k = [k for j, k in enumerate(k_values) if j in used_set] or list(k_values)
     if band is None:
@@ -416,7 +425,8 @@ def k_per_trial_svg(
     x_axis = LinearAxis(0.5, n + 0.5, left, right)
     ref = f"{reference_temperature_c:g}".translate(_SUBSCRIPT)
     desc_bits = [
-        f"{n} trial(s); k{ref} from {sci_text(min(k_values))} to {sci_text(max(k_values))} m/s",
+        f"{n} trial(s) ({', '.join(str(v) for v in shown)}); k{ref} from "
+        f"{sci_text(min(k_values))} to {sci_text(max(k_values))} m/s",
         f"band {sci_text(band_lo)} to {sci_text(band_hi)} m/s ({band_words})",
     ]
     if spec_limit is not None:
@@ -448,7 +458,7 @@ def k_per_trial_svg(
     )
     for j in range(n):
         x = x_axis.px(j + 1)
-        parts.append(_text(x, bottom + 18, str(j + 1), text_anchor="middle", class_="tick"))
+        parts.append(_text(x, bottom + 18, str(shown[j]), text_anchor="middle", class_="tick"))
     parts.append(_frame(left, top, right, bottom))
     if spec_limit is not None and spec_limit > 0:
         y = y_axis.px(spec_limit)
@@ -543,5 +553,121 @@ def k_depth_svg(
             f"k{ref} (m/s), log scale", "Depth below ground level (m)", left, top, right, bottom
         )
     )
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+def ln_head_trials_svg(
+    runs: Sequence[tuple[int, float, float, float]],
+    *,
+    plot_id: str = "ln-head-trials",
+    title: str = "Falling head: ln(head) against time, each trial",
+) -> str:
+    """ln(h) against the time since each trial began, one line per falling-head trial from
+    its initial head to its final head: equal slopes are equal conductivities.
+
+    Parameters
+    ----------
+    runs : (trial number, duration [s], initial head [m], final head [m]) per trial, all > 0
+    """
+    if not runs:
+        raise ValueError("ln_head_trials_svg needs at least one trial")
+    if any(t <= 0 or h1 <= 0 or h2 <= 0 for _, t, h1, h2 in runs):
+        raise ValueError("durations and heads must be greater than zero")
+    unit, per = _time_unit(max(t for _, t, _, _ in runs))
+    left, top = MARGIN_LEFT, MARGIN_TOP
+    right, bottom = WIDTH - MARGIN_RIGHT, HEIGHT - MARGIN_BOTTOM
+    ys = [math.log(h) for _, _, h1, h2 in runs for h in (h1, h2)]
+    x_axis = LinearAxis(0.0, max(t for _, t, _, _ in runs) / per, left, right)
+    y_pad = max((max(ys) - min(ys)) * 0.08, 0.01)
+    y_axis = LinearAxis(min(ys) - y_pad, max(ys) + y_pad, bottom, top)
+    desc = "; ".join(
+        f"trial {n}: h from {plain_label(h1)} m to {plain_label(h2)} m in "
+        f"{plain_label(t / per)} {unit}"
+        for n, t, h1, h2 in runs
+    )
+    parts = [
+        _open(plot_id, title, desc + ".", height=HEIGHT + legend_height(len(runs))),
+        _x_ticks(x_axis, x_axis.ticks(), plain_label, top, bottom),
+        _y_ticks(y_axis, y_axis.ticks(), lambda v: f"{v:.3g}", left, right),
+        _frame(left, top, right, bottom),
+    ]
+    legend = []
+    for index, (number, t, h1, h2) in enumerate(runs):
+        shape = SHAPES[index % len(SHAPES)]
+        colour = SERIES_COLOURS[index % len(SERIES_COLOURS)]
+        x1, y1 = x_axis.px(0.0), y_axis.px(math.log(h1))
+        x2, y2 = x_axis.px(t / per), y_axis.px(math.log(h2))
+        parts.append(
+            f'<g class="series" data-trial="{number}">'
+            f'<line x1="{_f(x1)}" y1="{_f(y1)}" x2="{_f(x2)}" y2="{_f(y2)}" '
+            f'stroke="{colour}" stroke-width="2"/>'
+            + marker(shape, x1, y1, colour)
+            + marker(shape, x2, y2, colour)
+            + "</g>"
+        )
+        legend.append((shape, colour, f"trial {number}", True))
+    parts.append(
+        _axis_titles(
+            f"Time since the trial began ({unit})", "ln h  (head h in m)", left, top, right, bottom
+        )
+    )
+    parts.append(_legend(legend, [], left, HEIGHT))
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+def k_time_svg(
+    points: Sequence[tuple[int, float, float]],
+    *,
+    reference_temperature_c: float = 20.0,
+    plot_id: str = "k-time",
+    title: str = "Hydraulic conductivity against time",
+) -> str:
+    """k at the reference temperature of each trial against the permeation time at its end
+    (the trials' durations added up): a steady k shows as a flat run of points.
+
+    Parameters
+    ----------
+    points : (trial number, permeation time at the trial's end [s], k [m/s]) per trial
+    """
+    if not points:
+        raise ValueError("k_time_svg needs at least one trial")
+    if any(k <= 0 or t <= 0 for _, t, k in points):
+        raise ValueError("k and times must be greater than zero")
+    unit, per = _time_unit(max(t for _, t, _ in points))
+    left, top = MARGIN_LEFT, MARGIN_TOP
+    right, bottom = WIDTH - MARGIN_RIGHT, HEIGHT - MARGIN_BOTTOM
+    lo, hi = log_range([k for _, _, k in points])
+    y_axis = LogAxis(lo, hi, bottom, top)
+    x_axis = LinearAxis(0.0, max(t for _, t, _ in points) / per, left, right)
+    ref = f"{reference_temperature_c:g}".translate(_SUBSCRIPT)
+    desc = "; ".join(
+        f"trial {n}: k{ref} {sci_text(k)} m/s at {plain_label(t / per)} {unit}"
+        for n, t, k in points
+    )
+    parts = [
+        _open(plot_id, title, desc + ".", height=HEIGHT + legend_height(1)),
+        _x_ticks(x_axis, x_axis.ticks(), plain_label, top, bottom),
+        _y_ticks(y_axis, y_axis.ticks(), sci_label, left, right),
+        _frame(left, top, right, bottom),
+    ]
+    xy = [(x_axis.px(t / per), y_axis.px(k)) for _, t, k in points]
+    path = " ".join(f"{_f(x)},{_f(y)}" for x, y in xy)
+    parts.append(f'<polyline points="{path}" fill="none" stroke="{GRID}" stroke-width="1.5"/>')
+    for (number, _, _), (x, y) in zip(points, xy, strict=True):
+        parts.append(marker("circle", x, y, ACCENT))
+        parts.append(_text(x, y - 10, str(number), text_anchor="middle", class_="tick"))
+    parts.append(
+        _axis_titles(
+            f"Permeation time at the end of the trial ({unit})",
+            f"k{ref} (m/s), log scale",
+            left,
+            top,
+            right,
+            bottom,
+        )
+    )
+    parts.append(_legend([("circle", ACCENT, "trial (its number above)", True)], [], left, HEIGHT))
     parts.append("</svg>")
     return "".join(parts)

@@ -400,9 +400,12 @@ def _stale_assignment(session: Session, test: PermeabilityTest, sent: TestUpdate
 
 
 def _read_assignment(form: AssignForm) -> tuple[TestUpdate | None, dict[str, dict[str, str]]]:
-    """The assignment to send, or the form's own refusals (choices that are not numbers)."""
+    """The assignment to send, or the form's own refusals (no technician chosen, choices
+    that are not numbers)."""
     errors: dict[str, dict[str, str]] = {}
     technician_id = _int_or_error(form.technician_id, "technician_id", "Technician", errors)
+    if not form.technician_id.strip():
+        errors["technician_id"] = {"msg": "Choose a technician.", "kind": "missing"}
     apparatus_ids = [
         value
         for raw in form.apparatus_ids

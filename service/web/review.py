@@ -34,7 +34,7 @@ from service.signoffs.service import performer_ids
 from service.web.entries import trial_entries_text
 from service.web.htmx import PostedForm, redirect, render
 from service.web.pages import layout_context
-from service.web.plots import k_per_trial_svg, ln_head_time_svg
+from service.web.plots import k_per_trial_svg, k_time_svg, ln_head_time_svg, ln_head_trials_svg
 from service.web.queue import METHOD_WORDS, StaffUser
 from service.web.refusals import Attempt, attempt
 
@@ -128,19 +128,58 @@ def _trial_rows(record: Any, result: dict[str, Any] | None) -> list[dict[str, An
     return rows
 
 
+FALLING_HEAD_METHODS = frozenset({"falling_head", "falling_head_rising_tail"})
+
+
+def _positive(*values: Any) -> bool:
+    return all(isinstance(v, int | float) and v > 0 and math.isfinite(v) for v in values)
+
+
+def _trial_plots(
+    included: list[Any], outputs: list[dict[str, Any]], test: Any, ref_c: float
+) -> dict[str, str]:
+    """ln h against t of each falling-head trial and k against permeation time, from the
+    trials as recorded and the reduction's outputs (its final heads and k)."""
+    plots = {"ln_head_trials": "", "k_time": ""}
+    pairs = list(zip(included, outputs, strict=False))
+    if test.method in FALLING_HEAD_METHODS:
+        runs = [
+            (t.seq, t.duration_s, t.head_initial_m, out.get("head_final_m") or t.head_final_m)
+            for t, out in pairs
+        ]
+        runs = [run for run in runs if _positive(*run[1:])]
+        if runs:
+            plots["ln_head_trials"] = ln_head_trials_svg(runs, plot_id="review-ln-head-trials")
+    elapsed, points = 0.0, []
+    for trial, out in pairs:
+        if not _positive(trial.duration_s, out.get("k_ref_m_per_s")):
+            return plots  # a trial without a duration: no time axis
+        elapsed += trial.duration_s
+        points.append((trial.seq, elapsed, out["k_ref_m_per_s"]))
+    if points:
+        plots["k_time"] = k_time_svg(points, reference_temperature_c=ref_c, plot_id="review-k-time")
+    return plots
+
+
 def _plots(record: Any, result: dict[str, Any] | None, test: Any) -> dict[str, Any]:
-    plots: dict[str, Any] = {"k": "", "ln_head": []}
+    plots: dict[str, Any] = {"k": "", "ln_head": [], "ln_head_trials": "", "k_time": ""}
+    included = [t for t in sorted(record.trials, key=lambda t: t.seq) if not t.excluded]
     if result and result["trials"]:
         k_values = [t["k_ref_m_per_s"] for t in result["trials"]]
+        ref_c = result.get("reference_temperature_c", 20.0)
         if all(k and k > 0 and math.isfinite(k) for k in k_values):
             plots["k"] = k_per_trial_svg(
                 k_values,
                 used=result["result"]["trials_used"],
                 band_fraction=_band_fraction(result),
                 spec_limit=test.spec_k_max_m_per_s,
-                reference_temperature_c=result.get("reference_temperature_c", 20.0),
+                reference_temperature_c=ref_c,
                 plot_id="review-k-plot",
+                numbers=[t.seq for t in included][: len(k_values)]
+                if len(included) >= len(k_values)
+                else None,
             )
+        plots.update(_trial_plots(included, result["trials"], test, ref_c))
     for trial in sorted(record.trials, key=lambda t: t.seq):
         readings = record.readings.get(trial.id, [])
         if len(readings) >= 2 and all(r.head_m > 0 for r in readings):

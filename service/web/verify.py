@@ -22,6 +22,7 @@ from service.certificates.service import (
     certificate_status,
     check_upload,
     find_by_code,
+    normalise_code,
     pdf_problem,
 )
 from service.certificates.signing import ALGORITHM, load_signing_key, published_keys
@@ -30,7 +31,7 @@ from service.db import session_scope, utcnow
 from service.deps import OptionalUser, SessionDep
 from service.errors import NotFound
 from service.exchange.files import FileTooLarge, read_limited
-from service.web.htmx import render
+from service.web.htmx import redirect, render
 from service.web.pages import layout_context
 
 WELL_KNOWN_KEY = "/.well-known/seepline-signing-key"
@@ -141,7 +142,20 @@ def checkpoint_list(
 
 
 @router.get("/verify")
-def verify_form(request: Request, user: OptionalUser) -> Response:
+def verify_form(
+    request: Request,
+    user: OptionalUser,
+    code: Annotated[str, Query(max_length=100)] = "",
+) -> Response:
+    """The check page: a box for the certificate's verification code (which leads to the
+    result page of that code, as its QR code does) and the PDF upload."""
+    typed = normalise_code(code)
+    if typed:
+        return redirect(request, f"/verify/{typed}")
+    if code:  # typed, but nothing of it is a letter or digit
+        message = "Verification code: type the code printed at the foot of the certificate."
+        context = layout_context(request, user, code_error=message, code_typed=code[:100])
+        return render(request, "verify/verify.html", context, status_code=422)
     return render(request, "verify/verify.html", layout_context(request, user))
 
 

@@ -33,6 +33,7 @@ def test_anchors_are_served_only_outside_production(
 ) -> None:
     monkeypatch.setenv("BENCH_ANCHORS", "1")
     monkeypatch.setenv("ENVIRONMENT", environment)
+    monkeypatch.setenv("PUBLIC_BASE_URL", "https://seepline.example-lab.test")
     get_settings.cache_clear()
 
     assert bench._enabled() is served

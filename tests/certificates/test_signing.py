@@ -22,7 +22,11 @@ def fresh_key_cache() -> Iterator[None]:
 
 
 def use_settings(monkeypatch: pytest.MonkeyPatch, **fields: object) -> None:
-    settings = Settings(secret_key="a-test-secret-of-enough-length", **fields)  # type: ignore[arg-type]
+    settings = Settings(
+        secret_key="a-test-secret-of-enough-length",
+        public_base_url="https://seepline.example-lab.test",
+        **fields,  # type: ignore[arg-type]
+    )
     monkeypatch.setattr(signing, "get_settings", lambda: settings)
 
 

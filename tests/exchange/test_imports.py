@@ -352,7 +352,7 @@ def test_schedule_from_xlsx(session: Session, client: TestClient, world: World) 
         (
             "client_sample_id,sample_type\nA,tube\na,tube\n",
             ["file", "row", 3, "column", "client_sample_id"],
-            "appears more than once",
+            "is also row 2",
         ),
         ("client_sample_id,sample_type\n", ["file"], "no data rows"),
         ("sample_type,priority\ntube,whenever\n", ["file", "row", 2, "column", "priority"], ""),
@@ -419,3 +419,33 @@ def test_readings_are_recorded_as_a_trial_once(
         headers=bearer(session, readings_world.world.technician),
     )
     assert no_key.status_code == 422
+
+
+def test_the_preview_checks_every_row_in_one_pass(
+    session: Session, client: TestClient, world: World
+) -> None:
+    # File rows (row 1 is the header): 2 a type that is not one, 3 a good row, 4 an unknown
+    # location, 5 a bottom above its top, 6 the client ID of row 3 again, 7 a good row.
+    content = (
+        "client_sample_id,location,depth_top,depth_bottom,sample_type\n"
+        "U1,BH-07,1 m,2 m,crate\n"
+        "U2,BH-07,1 m,2 m,tube\n"
+        "U3,BH-99,1 m,2 m,tube\n"
+        "U4,BH-07,3 m,2 m,tube\n"
+        "u2,BH-07,4 m,5 m,tube\n"
+        "U6,BH-07,6 m,7 m,tube\n"
+    )
+    headers = bearer(session, world.manager)
+    status, body = post_schedule(client, headers, world.project.id, content)
+    assert status == 200
+    assert body["ok"] is False
+    refused = {(p["loc"][2], p["loc"][4]): p["msg"] for p in body["errors"]}
+    assert set(refused) == {
+        (2, "sample_type"),
+        (4, "location"),
+        (5, "depth_bottom"),
+        (6, "client_sample_id"),
+    }
+    assert "is also row 3" in refused[(6, "client_sample_id")]
+    assert "no location named 'BH-99'" in refused[(4, "location")]
+    assert "is above the top depth" in refused[(5, "depth_bottom")]

@@ -6,7 +6,8 @@ import pytest
 import sqlalchemy as sa
 
 from service.cli import main as seepline
-from service.cli import migration_report, served_address
+from service.cli import migration_report
+from service.config import served_address
 from service.db import head_revision
 
 

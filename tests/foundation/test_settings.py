@@ -18,7 +18,12 @@ def test_production_refuses_placeholder_secret(placeholder: str) -> None:
 
 
 def test_production_accepts_a_real_secret() -> None:
-    settings = Settings(environment="production", secret_key="x" * 40, _env_file=None)
+    settings = Settings(
+        environment="production",
+        secret_key="x" * 40,
+        public_base_url="https://seepline.example-lab.test",
+        _env_file=None,
+    )
     assert settings.secret_key == "x" * 40
 
 

@@ -270,6 +270,7 @@ def test_production_refuses_to_believe_every_proxy(monkeypatch: pytest.MonkeyPat
 
     monkeypatch.setenv("ENVIRONMENT", "production")
     monkeypatch.setenv("SECRET_KEY", "a-real-production-secret-value")
+    monkeypatch.setenv("PUBLIC_BASE_URL", "https://seepline.example-lab.test")
     monkeypatch.setenv("FORWARDED_ALLOW_IPS", "*")
     with pytest.raises(ValidationError, match="FORWARDED_ALLOW_IPS"):
         Settings()

@@ -2,13 +2,18 @@
 
 from __future__ import annotations
 
+import re
+
 import pytest
 from fastapi.testclient import TestClient
 from sqlmodel import Session, select
 
-from service.accounts.models import AccessToken, SignInThrottle
+from service.accounts.models import AccessToken, SignInThrottle, User
+from service.certificates.models import Certificate, CertificateTest
 from service.common import OrganisationKind, Role
 from service.deps import SESSION_COOKIE
+from service.lab_tests.models import PermeabilityTest
+from service.samples.models import Sample
 from tests.auth_helpers import sign_in_cookie
 from tests.factories import make_organisation, make_project, make_sample, make_test, make_user
 
@@ -317,3 +322,80 @@ def test_footer_carries_the_usual_cautions(web_client: TestClient) -> None:
     text = web_client.get("/sign-in").text
     assert "licensed engineer under local codes and regulations" in text
     assert "the hydraulic conductivity of the soil in the field can differ" in text
+
+
+def _certify(session: Session, test: PermeabilityTest, number: str, issuer: User) -> None:
+    """A certificate row reporting `test` (the search reads its number only)."""
+    sample = session.get(Sample, test.sample_id)
+    assert sample is not None
+    assert test.id is not None
+    assert issuer.id is not None
+    certificate = Certificate(
+        number=number,
+        kind="sample",
+        project_id=sample.project_id,
+        sample_id=sample.id,
+        issued_by_id=issuer.id,
+        pdf=b"%PDF-",
+        sha256="0" * 64,
+        signature="-",
+        key_id="-",
+        verification_code=f"CODE-{number[-4:]}",
+    )
+    session.add(certificate)
+    session.flush()
+    assert certificate.id is not None
+    session.add(CertificateTest(certificate_id=certificate.id, test_id=test.id))
+    session.commit()
+
+
+@pytest.mark.parametrize(
+    ("typed", "found"),
+    [
+        ("0417", ["26-0417"]),  # part of a lab ID
+        ("bh-07/u2", ["26-0418"]),  # a client's sample ID, letter case ignored
+        ("rv-2026", ["26-0417", "26-0418"]),  # part of a project number
+        ("SC-26-0417", ["26-0417"]),  # a certificate number
+        ("%", []),  # wildcards are taken as typed
+        ("_", []),
+    ],
+)
+def test_search_finds_partial_ids_client_ids_projects_and_certificates(
+    web_client: TestClient, session: Session, typed: str, found: list[str]
+) -> None:
+    user = make_user(session, role=Role.LAB_MANAGER)
+    project = make_project(session, number="RV-2026-014")
+    first = make_sample(session, project=project, lab_id="26-0417", client_sample_id="BH-05/U1")
+    make_sample(session, project=project, lab_id="26-0418", client_sample_id="BH-07/U2")
+    make_sample(session, lab_id="26-0500", client_sample_id="TP-1")  # another project
+    _certify(session, make_test(session, sample=first), "SC-26-0417", user)
+    sign_in_cookie(session, web_client, user)
+    response = web_client.get("/search", params={"q": typed}, follow_redirects=False)
+    if len(found) == 1:
+        assert response.status_code == 303
+        sample = session.exec(select(Sample).where(Sample.lab_id == found[0])).one()
+        assert response.headers["location"] == f"/samples/{sample.id}"
+    elif found:
+        assert response.status_code == 200
+        listed = re.findall(r'<a href="/samples/\d+">([^<]+)</a>', response.text)
+        assert sorted(listed) == found
+        assert "project RV-2026-014" in response.text
+    else:
+        assert response.status_code == 404
+
+
+def test_a_client_search_by_project_number_stays_in_their_projects(
+    web_client: TestClient, session: Session
+) -> None:
+    ours = make_organisation(session, name="Alder Works")
+    user = make_user(session, role=Role.CLIENT, organisation=ours)
+    make_sample(
+        session, project=make_project(session, client=ours, number="AW-11"), lab_id="26-0601"
+    )
+    make_sample(session, project=make_project(session, number="AW-12"), lab_id="26-0602")
+    sign_in_cookie(session, web_client, user)
+    response = web_client.get("/search", params={"q": "AW-1"}, follow_redirects=False)
+    assert response.status_code == 303  # one sample of theirs: opened
+    assert response.headers["location"].startswith("/samples/")
+    mine = session.exec(select(Sample).where(Sample.lab_id == "26-0601")).one()
+    assert response.headers["location"] == f"/samples/{mine.id}"

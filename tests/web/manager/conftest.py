@@ -17,7 +17,13 @@ from service.common import ApparatusKind, OrganisationKind, Preparation, Role, T
 from service.db import utcnow
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.schemas import SignOffRequest, SpecimenWrite, TestCreate, TrialCreate
+from service.lab_tests.schemas import (
+    SignOffRequest,
+    SpecimenWrite,
+    TestCreate,
+    TrialCreate,
+    TrialExclusion,
+)
 from service.projects.models import Project
 from service.samples.models import Sample
 from tests.auth_helpers import sign_in_cookie
@@ -168,9 +174,12 @@ def submitted_test(
     *,
     performer: User | None = None,
     with_readings: bool = False,
+    k_values: tuple[float, ...] = (2.0e-10, 2.1e-10, 1.95e-10),
+    excluded: tuple[int, ...] = (),
     **kwargs: object,
 ) -> PermeabilityTest:
-    """A falling-head test with its specimen and three trials, submitted by `performer`."""
+    """A falling-head test with its specimen and a trial per k (three by default), those
+    numbered in `excluded` left out, submitted by `performer`."""
     test = new_test(session, lab, **kwargs)  # type: ignore[arg-type]
     assert test.id is not None
     performer = performer or kwargs.get("technician") or lab.technician  # type: ignore[assignment]
@@ -188,14 +197,22 @@ def submitted_test(
         ),
         actor=performer,
     )
-    for seq, k in enumerate((2.0e-10, 2.1e-10, 1.95e-10), start=1):
-        lab_tests.record_trial(
+    for seq, k in enumerate(k_values, start=1):
+        written = lab_tests.record_trial(
             session,
             test.id,
             TrialCreate(**falling_head_entries(k)),
             idempotency_key=f"t{test.id}-{seq}",
             actor=performer,
         )
+        if seq in excluded:
+            lab_tests.exclude_trial(
+                session,
+                test.id,
+                written.trial.id,
+                TrialExclusion(version=written.trial.version, reason="Air in the standpipe line."),
+                actor=performer,
+            )
     if with_readings:
         # ln h falls linearly with t at the slope k·A/(a·L) of the same specimen (Darcy,
         # falling head), for k = 2.05e-10 m/s; readings to 0.001 cm.

@@ -12,8 +12,10 @@ from sqlmodel import Session
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind, Role
 from service.db import utcnow
+from service.errors import InvalidInput
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
+from service.lab_tests.schemas import TestUpdate
 from tests.factories import make_organisation, make_project, make_user
 from tests.web.manager.conftest import HTMX, Lab, new_test, signed_in
 
@@ -320,3 +322,106 @@ def test_client_gets_404_on_assign(session: Session, lab: Lab, web_client: TestC
     test = new_test(session, lab)
     signed_in(session, web_client, lab.client)
     assert web_client.get(f"/tests/{test.id}/assign").status_code == 404
+
+
+def test_assign_with_nobody_chosen_is_refused_beside_the_field(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = new_test(session, lab)
+    csrf = signed_in(session, web_client, lab.manager)
+    answer = web_client.post(
+        f"/tests/{test.id}/assign",
+        data={"technician_id": "", "version": str(test.version)},
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 422
+    assert re.search(r'id="err-technician_id"[^>]*>.*?Choose a technician', answer.text, re.S)
+    assert "assigned to nobody" not in answer.text
+    session.expire_all()
+    assert session.get(PermeabilityTest, test.id).technician_id == lab.technician.id  # type: ignore[union-attr]
+
+
+def test_assign_refuses_a_permeameter_built_for_another_method(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    # A constant-head cell reads the head loss at manometer ports (ASTM D2434 §6.1, from
+    # memory); a falling-head test needs the standpipe's area (ASTM D5084 eq. for method C,
+    # a = standpipe area; common practice, no source): such a cell cannot run it.
+    cell = Apparatus(
+        identifier="PRM-CH1",
+        kind=ApparatusKind.RIGID_WALL_PERMEAMETER,
+        port_spacing_m=0.15,
+        port_spacing_text="150 mm",
+    )
+    session.add(cell)
+    session.commit()
+    test = new_test(session, lab)  # a falling-head test
+    csrf = signed_in(session, web_client, lab.manager)
+    answer = web_client.post(
+        f"/tests/{test.id}/assign",
+        data={
+            "technician_id": str(lab.technician.id),
+            "apparatus_ids": [str(cell.id)],
+            "version": str(test.version),
+        },
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 422
+    message = re.search(r'id="err-apparatus_ids".*?<span>(.*?)</span>', answer.text, re.S)
+    assert message is not None
+    assert "PRM-CH1" in message.group(1)
+    assert "falling head" in message.group(1)
+    assert "standpipe area" in message.group(1)
+    ids = {a.identifier for a in lab_tests.apparatus_of(session, test.id or 0)}
+    assert "PRM-CH1" not in ids
+
+
+def test_assign_refuses_a_wall_the_standard_does_not_use(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    # ASTM D5084 is the flexible-wall method, D5856 the rigid-wall compaction-mold one
+    # (their titles).
+    test = new_test(session, lab)
+    flexible = Apparatus(identifier="PRM-F9", kind=ApparatusKind.FLEXIBLE_WALL_PERMEAMETER)
+    session.add(flexible)
+    stored = session.get(PermeabilityTest, test.id)
+    assert stored is not None
+    stored.standard = "ASTM D5856"
+    session.add(stored)
+    session.commit()
+    csrf = signed_in(session, web_client, lab.manager)
+    answer = web_client.post(
+        f"/tests/{test.id}/assign",
+        data={
+            "technician_id": str(lab.technician.id),
+            "apparatus_ids": [str(flexible.id)],
+            "version": str(stored.version),
+        },
+        headers={**csrf, **HTMX},
+    )
+    assert answer.status_code == 422
+    assert "PRM-F9 (flexible-wall permeameter) does not fit ASTM D5856" in answer.text
+
+
+def test_the_assign_link_scrolls_its_panel_into_view(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = new_test(session, lab)
+    signed_in(session, web_client, lab.manager)
+    page = web_client.get("/queue")
+    assert 'hx-target="#assign-slot" hx-swap="innerHTML show:top"' in page.text
+    fragment = web_client.get(f"/tests/{test.id}/assign", headers=HTMX)
+    assert re.search(r'<select id="assign-technician-\d+"[^>]*autofocus', fragment.text)
+
+
+def test_a_new_standard_must_fit_the_permeameter_kept(session: Session, lab: Lab) -> None:
+    # ASTM D5856 is the rigid-wall compaction-mold method (its title); PRM-T1 is flexible.
+    test = new_test(session, lab)
+    assert test.id is not None
+    with pytest.raises(InvalidInput, match="PRM-T1"):
+        lab_tests.update_test(
+            session,
+            test.id,
+            TestUpdate(version=test.version, standard="ASTM D5856"),
+            actor=lab.manager,
+        )

@@ -313,3 +313,31 @@ def test_planned_test_has_nothing_to_decide(
     page = web_client.get(f"/tests/{test.id}/review").text
     assert 'data-testid="not-submitted"' in page
     assert 'data-testid="no-result"' in page
+
+
+def test_plots_number_trials_as_the_table_and_add_head_time_and_k_time(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    # Five falling-head trials, the first left out: the table says trials 2-5, so must the
+    # plots. Each trial's heads follow h2 = h1·exp(−k·A·t/(a·L)) (Darcy, falling head), so
+    # ln h falls linearly in t (ASTM D5084 falling-head equation; common practice).
+    ks = (3.0e-10, 2.0e-10, 2.1e-10, 1.95e-10, 2.05e-10)
+    test = submitted_test(session, lab, k_values=ks, excluded=(1,))
+    signed_in(session, web_client, lab.reviewer)
+    text = web_client.get(f"/tests/{test.id}/review").text
+    k_plot = re.search(r'<svg[^>]*id="review-k-plot".*?</svg>', text, re.S)
+    assert k_plot is not None
+    ticks = re.findall(
+        r'<text x="[^"]*" y="[^"]*" text-anchor="middle" class="tick">(\d+)</text>', k_plot.group(0)
+    )
+    assert ticks == ["2", "3", "4", "5"]
+    head_time = re.search(r'data-testid="plot-ln-head-trials".*?</svg>', text, re.S)
+    assert head_time is not None
+    assert re.findall(r'data-trial="(\d+)"', head_time.group(0)) == ["2", "3", "4", "5"]
+    assert "trial 2: h from 1 m to" in head_time.group(0)  # h1 = 100.0 cm, every trial
+    assert "ln h" in head_time.group(0)
+    k_time = re.search(r'data-testid="plot-k-time".*?</svg>', text, re.S)
+    assert k_time is not None
+    # 6 h per trial: trials 2-5 end at 6, 12, 18 and 24 h of permeation.
+    for trial, hours in ((2, 6), (3, 12), (4, 18), (5, 24)):
+        assert re.search(rf"trial {trial}: k₂₀ [^;]* m/s at {hours} h", k_time.group(0)), trial

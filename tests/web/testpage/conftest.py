@@ -104,6 +104,9 @@ def lab(session: Session, web_client: TestClient) -> Lab:
         identifier="PERM-TAPS",
         port_spacing_text="15.0 cm",
         port_spacing_m=0.15,
+        # and a standpipe, so it can also run the falling-head test it is picked for here
+        standpipe_area_text="0.50 cm**2",
+        standpipe_area_m2=5.0e-5,
     )
     overdue = make_item(
         session,
