@@ -748,6 +748,7 @@ def stage_permeation(
                 "inflow_volume_m3": d.inflow_volume_m3,
                 "outflow_volume_m3": d.outflow_volume_m3,
                 "flow_ratio": d.flow_ratio,
+                "temperature_c": d.temperature_c,
                 "k_m_per_s": d.k_m_per_s,
                 "k_ref_m_per_s": d.k_ref_m_per_s,
                 "cumulative_flow_m3": d.cumulative_flow_m3,

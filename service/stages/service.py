@@ -433,3 +433,30 @@ def stage_read(row: TestStage | None) -> dict[str, Any] | None:
 def stages_read(rows: Mapping[str, TestStage]) -> dict[str, Any]:
     """Every stage by name, null where not recorded."""
     return {s.id: stage_read(rows.get(s.id)) for s in STAGES}
+
+
+def stages_by_test(session: Session, test_ids: Sequence[int]) -> dict[int, dict[str, Any]]:
+    """Every stage of each test (null where not recorded), for the export."""
+    grouped: dict[int, dict[str, TestStage]] = {t: {} for t in test_ids}
+    for row in session.exec(select(TestStage).where(col(TestStage.test_id).in_(test_ids))).all():
+        grouped[row.test_id][row.stage] = row
+    return {t: stages_read(rows) for t, rows in grouped.items()}
+
+
+def permeation_trials(row: TestStage) -> list[dict[str, str]]:
+    """The permeation stage's intervals as the test's trials (heads, duration, inflow and
+    outflow, temperature), each figure written in SI with enough digits to give the same k."""
+    trials = []
+    for d in row.outcome.get("determinations", []):
+        trial = {
+            "head_initial": f"{d['head_initial_m']:.6g} m",
+            "head_final": f"{d['head_final_m']:.6g} m",
+            "duration": f"{d['time_end_s'] - d['time_start_s']:.6g} s",
+            "inflow_volume": f"{d['inflow_volume_m3'] * 1e6:.6g} mL",
+        }
+        if d.get("outflow_volume_m3") is not None:
+            trial["outflow_volume"] = f"{d['outflow_volume_m3'] * 1e6:.6g} mL"
+        if d.get("temperature_c") is not None:
+            trial["temperature"] = f"{d['temperature_c']:.6g} degC"
+        trials.append(trial)
+    return trials

@@ -44,7 +44,8 @@ def test_a_stage_form_asks_for_numbers_on_a_decimal_keypad_with_units(lab: Lab) 
     assert page.status_code == 200
     assert 'name="g.readings.0.headwater_pressure"' in page.text
     field = re.search(r'<input[^>]*name="g.readings.0.headwater_pressure"[^>]*>', page.text)
-    assert field is not None and 'inputmode="decimal"' in field.group(0)
+    assert field is not None
+    assert 'inputmode="decimal"' in field.group(0)
     assert 'name="g.readings.headwater_pressure.unit"' in page.text
 
 
