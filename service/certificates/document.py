@@ -28,6 +28,8 @@ from service.lab_tests.reduction import Scope, catalogue
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
+from service.stages.service import stages_of
+from service.stages.summary import summarise
 
 CAUTIONS = (
     "The results describe only the specimens tested, prepared and permeated under the "
@@ -133,6 +135,8 @@ class TestSection:
     signoffs: tuple[SignOffLine, ...]
     engine_version: str
     input_hash: str
+    # Flexible-wall tests: each recorded stage's title and its lines (label, value).
+    stages: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = ()
 
     @property
     def expanded_u_m_per_s(self) -> float | None:
@@ -412,6 +416,18 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
         signoffs=_signoffs(session, test.id),
         engine_version=test.engine_version or str(result.get("engine_version", "")),
         input_hash=test.input_hash,
+        stages=_stage_lines(session, test.id),
+    )
+
+
+def _stage_lines(
+    session: Session, test_id: int
+) -> tuple[tuple[str, tuple[tuple[str, str], ...]], ...]:
+    """The recorded stages of a flexible-wall test, summarised (none for other tests)."""
+    return tuple(
+        (item.title, tuple(item.lines))
+        for item in summarise(stages_of(session, test_id), plain=True)
+        if item.recorded
     )
 
 

@@ -25,8 +25,10 @@ class StageSummary:
     refused: list[str] = field(default_factory=list)
 
 
-def sci(value: float) -> str:
-    """3.9 × 10⁻¹⁰."""
+def sci(value: float, plain: bool = False) -> str:
+    """3.94 × 10⁻¹⁰ (plain: 3.94E-10, for documents drawn in Latin-1)."""
+    if plain:
+        return f"{value:.2E}"
     mantissa, exponent = f"{value:.2e}".split("e")
     sup = str(int(exponent)).translate(str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹"))
     return f"{float(mantissa):.2f} × 10{sup}"
@@ -104,7 +106,7 @@ def _consolidation(row: TestStage) -> list[tuple[str, str]]:
     return lines
 
 
-def _permeation(row: TestStage) -> list[tuple[str, str]]:
+def _permeation(row: TestStage, plain: bool = False) -> list[tuple[str, str]]:
     out = row.outcome
     method = row.typed.get("permeation_method", "")
     lines = [("Hydraulic system", catalogue.method_name(method))] if method else []
@@ -114,14 +116,16 @@ def _permeation(row: TestStage) -> list[tuple[str, str]]:
     if found:
         ks = [d["k_ref_m_per_s"] for d in found]
         lines.append(("Intervals", str(len(found))))
-        lines.append(("k₂₀ of the last interval", f"{sci(ks[-1])} m/s"))
+        lines.append(("k₂₀ of the last interval", f"{sci(ks[-1], plain)} m/s"))
         ratios = [d["flow_ratio"] for d in found if d["flow_ratio"] is not None]
         if ratios:
             lines.append(("Outflow/inflow", f"{min(ratios):.2f} to {max(ratios):.2f}"))
         if found[-1]["pore_volumes"] is not None:
             lines.append(("Pore volumes of flow", f"{found[-1]['pore_volumes']:.3f}"))
     if out.get("k_ref_m_per_s"):
-        lines.append(("k₂₀ (mean of the last four intervals)", f"{sci(out['k_ref_m_per_s'])} m/s"))
+        lines.append(
+            ("k₂₀ (mean of the last four intervals)", f"{sci(out['k_ref_m_per_s'], plain)} m/s")
+        )
     for check in out.get("checks", []):
         if check["id"] in STAGE_CHECKS:
             words = check["id"].replace("_", " ").capitalize()
@@ -150,14 +154,16 @@ _LINES = {
 }
 
 
-def summarise(rows: Mapping[str, TestStage]) -> list[StageSummary]:
-    """Every stage in order, recorded or not."""
+def summarise(rows: Mapping[str, TestStage], *, plain: bool = False) -> list[StageSummary]:
+    """Every stage in order, recorded or not (`plain`: powers of ten as 3.94E-10)."""
     out = []
     for spec in STAGES:
         row = rows.get(spec.id)
         item = StageSummary(spec.id, spec.title, row is not None)
         if row is not None:
-            item.lines = _LINES[spec.id](row)
+            item.lines = (
+                _permeation(row, plain) if spec.id == StageName.PERMEATION else _LINES[spec.id](row)
+            )
             item.refused = list(row.outcome.get("refused", []))
         out.append(item)
     return out

@@ -7,12 +7,14 @@ import pytest
 from sqlmodel import Session, select
 
 from service.accounts.models import User
+from service.certificates.models import Certificate, CertificateTest
 from service.common import Role
 from service.demo import load_demo
 from service.exchange.exports import project_json
 from service.lab_tests.models import PermeabilityTest
 from service.samples.models import Sample
 from service.stages.models import TestStage
+from tests.certificates.test_certificates import pdf_text
 
 STAGE_KEYS = {"setup", "saturation", "consolidation", "permeation", "post_test"}
 
@@ -56,3 +58,23 @@ def test_export_carries_stages_per_test(session: Session) -> None:
     assert staged["stages"]["permeation"]["si"]["readings"][1]["headwater_pressure"] == 445_000
     plain = next(t for t in tests if t["id"] != test.id)
     assert plain["stages"]["setup"] is None
+
+
+def test_the_certificate_shows_the_stages_summary(session: Session) -> None:
+    load_demo(session)
+    session.commit()
+    row = session.exec(select(TestStage).where(TestStage.stage == "permeation")).first()
+    assert row is not None
+    link = session.exec(
+        select(CertificateTest).where(CertificateTest.test_id == row.test_id)
+    ).first()
+    assert link is not None
+    certificate = session.get(Certificate, link.certificate_id)
+    assert certificate is not None
+    assert certificate.pdf is not None
+    text = pdf_text(certificate.pdf)
+    assert "Stages of the flexible-wall test" in text
+    assert "End of consolidation" in text
+    assert "Degree of saturation" in text
+    # The stage summary's k20 in plain powers of ten, as the certificate prints it.
+    assert f"{row.outcome['k_ref_m_per_s']:.2E} m/s" in text

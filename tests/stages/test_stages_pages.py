@@ -8,9 +8,10 @@ import re
 
 from sqlmodel import select
 
+from service.stages.example import example_stages
 from service.stages.models import TestStage
 from tests.auth_helpers import sign_in_cookie
-from tests.stages.conftest import Lab, flexible_test
+from tests.stages.conftest import Lab, flexible_test, put_stage
 
 HTMX = {"HX-Request": "true"}
 
@@ -95,3 +96,16 @@ def test_a_rigid_wall_test_shows_no_stages(lab: Lab) -> None:
     assert 'data-testid="no-stages"' in page.text
     answer = lab.client.post(f"/tests/{test_id}/stages/setup", data=SETUP_FORM, headers=csrf)
     assert answer.status_code == 409
+
+
+def test_the_review_page_shows_the_stages_with_their_plots(lab: Lab) -> None:
+    test_id = flexible_test(lab)
+    for stage, body in example_stages().items():
+        data = body.model_dump(mode="json", exclude_none=True)
+        assert put_stage(lab, test_id, stage, data).status_code == 200
+    sign_in_cookie(lab.session, lab.client, lab.manager)
+    page = lab.client.get(f"/tests/{test_id}/review")
+    assert page.status_code == 200
+    assert 'data-testid="review-stages"' in page.text
+    for plot in ("stage-b", "stage-root-time", "stage-k-time", "stage-k-pore-volumes"):
+        assert f'id="{plot}"' in page.text
