@@ -36,6 +36,7 @@ from service.stages.fields import STAGE_IDS, STAGES, StageSpec, stage_spec
 from service.stages.models import StageName, TestStage
 
 MAX_ROWS = 500
+MIN_VOLUME_READINGS = 4
 MAX_TEXT = 200
 Value = str | bool | None
 
@@ -280,8 +281,14 @@ def derive(
         )
     if stage == StageName.CONSOLIDATION:
         readings = [(r["elapsed"], r["volume_change"]) for r in si.get("readings", [])]
-        if not readings:
-            return {}
+        stress = si["cell_pressure"] - si["back_pressure"]
+        if len(readings) < MIN_VOLUME_READINGS:
+            # Readings come in over hours: keep them; the end is judged from the fourth on.
+            return {
+                "effective_stress_pa": stress,
+                "pending": "At least four volume-change readings are needed to judge the end "
+                "of consolidation.",
+            }
         out = reduction.stage_consolidation(
             readings,
             length_m=setup.get("length"),
@@ -290,11 +297,11 @@ def derive(
             dry_mass_kg=reduction.stage_dry_mass(setup.get("wet_mass"), setup.get("water_content")),
             specific_gravity=gravity,
         )
-        out["effective_stress_pa"] = si["cell_pressure"] - si["back_pressure"]
+        out["effective_stress_pa"] = stress
         return out
     if stage == StageName.PERMEATION:
         if len(si.get("readings", [])) < 2:
-            return {}
+            return {"pending": "At least two readings are needed for a first k."}
         consolidation = others.get(StageName.CONSOLIDATION)
         dims = (consolidation.outcome.get("dimensions") if consolidation else None) or {}
         length = dims.get("length_m") or setup.get("length")

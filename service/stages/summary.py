@@ -165,6 +165,8 @@ def summarise(rows: Mapping[str, TestStage], *, plain: bool = False) -> list[Sta
                 _permeation(row, plain) if spec.id == StageName.PERMEATION else _LINES[spec.id](row)
             )
             item.refused = list(row.outcome.get("refused", []))
+            if row.outcome.get("pending"):
+                item.lines.append(("Still needed", str(row.outcome["pending"])))
         out.append(item)
     return out
 

@@ -285,7 +285,7 @@ def save_stage(
     form: PostedForm,
 ) -> Response:
     """Record a stage; a refusal comes back with every message beside its field and
-    everything typed kept (nothing stored); saved, the next stage's page opens."""
+    everything typed kept (nothing stored); saved, the stage opens again with its outcome."""
     spec = stage_spec(stage)
     if spec is None:
         raise NotFound(f"no stage {stage!r} (stages: {', '.join(STAGE_IDS)})")
@@ -294,9 +294,8 @@ def save_stage(
     with attempt(session) as tried:
         stages.write_stage(session, test_id, stage, StageWrite.model_validate(body), actor=user)
     if not tried.refused:
-        following = _next(stage)
-        target = f"/tests/{test_id}/stages/{following}" if following else f"/tests/{test_id}/stages"
-        return redirect(request, f"{target}?saved=1")
+        # Readings come in over hours: the stage stays open, with fresh rows below.
+        return redirect(request, f"/tests/{test_id}/stages/{stage}?saved=1")
     problems = []
     for p in tried.problems:
         loc = list(p.loc)

@@ -50,14 +50,14 @@ def test_a_stage_form_asks_for_numbers_on_a_decimal_keypad_with_units(lab: Lab) 
     assert 'name="g.readings.headwater_pressure.unit"' in page.text
 
 
-def test_saving_a_stage_opens_the_next_one(lab: Lab) -> None:
+def test_saving_a_stage_opens_it_again_with_its_outcome(lab: Lab) -> None:
     test_id = flexible_test(lab)
     csrf = sign_in_cookie(lab.session, lab.client, lab.technician)
     answer = lab.client.post(
         f"/tests/{test_id}/stages/setup", data=SETUP_FORM, headers=csrf, follow_redirects=False
     )
     assert answer.status_code == 303
-    assert answer.headers["location"] == f"/tests/{test_id}/stages/saturation?saved=1"
+    assert answer.headers["location"] == f"/tests/{test_id}/stages/setup?saved=1"
     lab.session.commit()
     row = lab.session.exec(select(TestStage).where(TestStage.test_id == test_id)).one()
     assert row.typed["diameter"] == "7.10 cm"
