@@ -185,8 +185,14 @@ def test_a_whole_flexible_wall_test_through_its_stages(
               "headwater_pressure": "435", "tailwater_pressure": "435"}],
         )  # fmt: skip
         page.locator('[name="g.readings.elapsed.unit"]').select_option("h")
-        panel = [("0", "1.00", "20.00"), ("4", "1.37", "19.64"), ("8", "1.73", "19.29"),
-                 ("12", "2.09", "18.93"), ("16", "2.45", "18.58"), ("20", "2.81", "18.23")]  # fmt: skip
+        panel = [
+            ("0", "1.00", "20.00"),
+            ("4", "1.37", "19.64"),
+            ("8", "1.73", "19.29"),
+            ("12", "2.09", "18.93"),
+            ("16", "2.45", "18.58"),
+            ("20", "2.81", "18.23"),
+        ]
         rows = [
             {"elapsed": t, "headwater_reading": hw, "tailwater_reading": tw,
              "headwater_pressure": "445", "tailwater_pressure": "435", "temperature": "20.4"}
