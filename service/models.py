@@ -17,7 +17,7 @@ from service.lab_tests.models import (
 from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
-from service.stages.models import TestStage
+from service.stages.models import LoggerMapping, TestStage
 from service.stored_text import install as install_stored_text_check
 
 __all__ = [
@@ -31,6 +31,7 @@ __all__ = [
     "CustodyEvent",
     "IdempotencyRecord",
     "Location",
+    "LoggerMapping",
     "Organisation",
     "PermeabilityTest",
     "Project",

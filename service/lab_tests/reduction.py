@@ -34,6 +34,7 @@ from service.engine import (
     ENGINE_VERSION,
     EngineInputError,
     catalogue,
+    logger,
     permeation,
     read_request,
     reduce,
@@ -792,3 +793,66 @@ def stage_post_test(
         "void_ratio": phase.void_ratio,
         "degree_of_saturation": phase.degree_of_saturation,
     }
+
+
+def logger_readings(
+    header: Sequence[str],
+    rows: Sequence[Sequence[str]],
+    mapping: Mapping[str, Any],
+    kinds: Mapping[str, Any],
+    *,
+    first_row: int = 2,
+) -> list[dict[str, Any]]:
+    """A logger file's rows as stage readings, or every bad cell refused by row and column.
+
+    `mapping` is the apparatus's stored mapping (``time``: column and unit or date-time
+    format; ``channels``: quantity -> column and unit); `kinds` the physical kind of each
+    quantity (the catalogue entry's). Each reading: ``elapsed`` and the quantities, each
+    ``{"text": the cell with its unit, "si": the SI value}``."""
+    time = mapping.get("time") or {}
+    channels = tuple(
+        logger.Channel(
+            quantity=name,
+            column=str(spec.get("column", "")),
+            unit=str(spec.get("unit", "")),
+            kind=kinds[name],
+            required=bool(spec.get("required", True)),
+        )
+        for name, spec in (mapping.get("channels") or {}).items()
+        if name in kinds
+    )
+    engine_mapping = logger.LoggerMapping(
+        time=logger.TimeColumn(
+            column=str(time.get("column", "")),
+            unit=time.get("unit") or None,
+            datetime_format=time.get("datetime_format") or None,
+        ),
+        channels=channels,
+    )
+    try:
+        read = logger.parse_logger_rows(header, rows, engine_mapping, first_row=first_row)
+    except EngineInputError as exc:
+        raise InvalidInput(
+            "the logger file was refused; nothing was stored",
+            problems=[
+                FieldProblem(
+                    ("file", *p.loc[1:]) if p.loc and p.loc[0] == "file" else p.loc,
+                    p.reason,
+                    p.value,
+                    p.accepted,
+                    p.kind,
+                    logger.cell_message(p) if p.loc and p.loc[0] == "file" else "",
+                )
+                for p in exc.problems
+            ],
+        ) from None
+    units = {c.quantity: c.unit for c in channels}
+    out = []
+    for row in read.rows:
+        elapsed = f"{row.texts['time']} {time['unit']}" if time.get("unit") else f"{row.time_s!r} s"
+        reading: dict[str, Any] = {"elapsed": {"text": elapsed, "si": row.time_s}}
+        for name, value in row.values.items():
+            if value is not None:
+                reading[name] = {"text": f"{row.texts[name]} {units[name]}", "si": value}
+        out.append(reading)
+    return out

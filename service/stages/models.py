@@ -43,3 +43,23 @@ class TestStage(SQLModel, table=True):
     recorded_by_id: int | None = Field(default=None, foreign_key="app_user.id")
     recorded_at: datetime = created_at_field()
     version: int = version_field()
+
+
+class LoggerMapping(SQLModel, table=True):
+    """How an apparatus's logger files are read for one stage, set once: the time column
+    (elapsed with its unit, or a clock time with its format) and a column and unit per
+    quantity. Changed in place against its version, each change audited."""
+
+    __tablename__ = "logger_mapping"
+    __table_args__ = (
+        sa.UniqueConstraint("apparatus_id", "stage"),
+        one_of("stage", StageName),
+    )
+
+    id: int | None = Field(default=None, primary_key=True)
+    apparatus_id: int = Field(foreign_key="apparatus.id", index=True)
+    stage: str = Field(max_length=20)
+    mapping: dict[str, Any] = json_field()
+    recorded_by_id: int | None = Field(default=None, foreign_key="app_user.id")
+    recorded_at: datetime = created_at_field()
+    version: int = version_field()
