@@ -24,6 +24,7 @@ from service.errors import (
 from service.exchange.files import Table
 from service.lab_tests import reduction
 from service.lab_tests.models import TestApparatus
+from service.lab_tests.permissions import Action, require
 from service.lab_tests.reading import get_test
 from service.stages.fields import stage_spec
 from service.stages.models import LoggerMapping, StageName, TestStage
@@ -171,6 +172,7 @@ def import_readings(
     stage's own entries are kept. Nothing is stored unless every row reads."""
     _stage_of(stage)
     test = get_test(session, test_id, actor=actor)
+    require(test, actor, Action.RECORD)
     mapping = mapping_for_test(session, test.id or 0, stage)
     readings = reduction.logger_readings(
         table.header, table.rows, mapping.mapping, _kinds(stage), first_row=table.first_row

@@ -124,6 +124,10 @@ ACCESS: dict[str, Access] = {
     "POST /api/v1/tests/{test_id}/saturation": Access(WRITERS),
     "GET /api/v1/tests/{test_id}/stages": _owned(SIGNED_IN),
     "PUT /api/v1/tests/{test_id}/stages/{stage}": Access(WRITERS),
+    "POST /api/v1/tests/{test_id}/stages/{stage}/logger": Access(WRITERS),
+    "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": Access(
+        frozenset({"technician", "lab_manager", "admin"})
+    ),
     "GET /api/v1/tests/{test_id}/reduction": _owned(SIGNED_IN),
     "GET /api/v1/tests/{test_id}/recompute": _owned(SIGNED_IN),
     "POST /api/v1/tests/{test_id}/submit": Access(WRITERS),
@@ -251,7 +255,7 @@ def _path_values(key: str, identity: str, proof: Proof) -> dict[str, Any]:
         "project_id": proof.world.project.id,
         "test_id": _test_id_for(key, proof),
         "trial_id": proof.trial.id,
-        "stage": "setup",
+        "stage": "consolidation" if "logger" in key else "setup",
         "user_id": proof.world.technician.id,
         "organisation_id": proof.world.client_org.id,
     }
@@ -377,6 +381,15 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
         },
         "PUT /api/v1/tests/{test_id}/stages/{stage}": lambda: {
             "json": {"entries": {"diameter": "7.10 cm", "length": "7.50 cm", "wet_mass": "590 g"}}
+        },
+        "POST /api/v1/tests/{test_id}/stages/{stage}/logger": lambda: {
+            "files": _csv("t,v\n1,0.1\n")
+        },
+        "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": lambda: {
+            "json": {
+                "time": {"column": "t", "unit": "min"},
+                "channels": {"volume_change": {"column": "v", "unit": "mL"}},
+            }
         },
         "POST /tests/{test_id}/stages/{stage}": lambda: {
             "data": {
