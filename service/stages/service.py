@@ -180,7 +180,7 @@ def read_typed(spec: StageSpec, data: StageWrite) -> tuple[dict[str, Any], dict[
                 )
             )
     for entry in spec.entries:
-        loc = ("entries", entry.id)
+        loc: tuple[Any, ...] = ("entries", entry.id)
         try:
             shown, value = _value(entry, data.entries.get(entry.id), loc)
         except InvalidInput as exc:
@@ -372,7 +372,7 @@ def write_stage(
     except InvalidInput as exc:
         raise _labelled(spec, exc) from None
     start(session, test, actor=actor)
-    columns = {
+    columns: dict[str, Any] = {
         "typed": typed_values,
         "si": si,
         "outcome": outcome,

@@ -145,7 +145,7 @@ def _post_test(row: TestStage) -> list[tuple[str, str]]:
     return lines
 
 
-_LINES = {
+_LINES: dict[str, Any] = {
     StageName.SETUP: _setup,
     StageName.SATURATION: _saturation,
     StageName.CONSOLIDATION: _consolidation,

@@ -237,7 +237,7 @@ def _context(
         current=stage,
         spec=spec,
         row=rows.get(stage) if stage else None,
-        values=_field_values(spec, rows.get(stage)) if spec else {},
+        values=_field_values(spec, rows.get(stage)) if spec and stage else {},
         errors={},
         general=[],
         units_of=units_of,
