@@ -1,7 +1,7 @@
-"""A technician walks a whole flexible-wall test through its stages on a phone-sized tablet
-viewport (390×844): set-up, saturation, consolidation, permeation and after the test, each
-saved from the stage form with a decimal keypad and a unit picker, one refusal shown beside
-its field with the typed value kept; screenshots of each stage in test-artifacts/."""
+"""A technician walks a whole flexible-wall test through its stages on a phone-sized viewport
+(390×844) and a tablet (1024×768): set-up, saturation, consolidation, permeation and after
+the test, each saved from the stage form with a decimal keypad and a unit picker, one
+refusal shown beside its field with the typed value kept; screenshots of each stage in test-artifacts/."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from sqlmodel import Session
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind, OrganisationKind, Role
 from service.lab_tests.models import TestApparatus
-from tests.browser.conftest import PHONE
+from tests.browser.conftest import PHONE, TABLET
 from tests.browser.test_bench_browser import check_accessibility_basics
 from tests.factories import make_organisation, make_project, make_sample, make_test, make_user
 
@@ -65,17 +65,18 @@ def _fill_rows(page: Any, group: str, start: int, rows: list[dict[str, str]]) ->
             page.locator(f'[name="g.{group}.{start + offset}.{entry}"]').fill(value)
 
 
+@pytest.mark.parametrize(("viewport", "name"), [(PHONE, "phone"), (TABLET, "tablet")])
 def test_a_whole_flexible_wall_test_through_its_stages(
-    live_server: str, chromium: Any, session: Session, artifacts: Path
+    live_server: str, chromium: Any, session: Session, artifacts: Path, viewport: Any, name: str
 ) -> None:
     email, test_id = _flexible_test(session)
-    context = chromium.new_context(viewport=PHONE)
+    context = chromium.new_context(viewport=viewport)
     page = context.new_page()
     errors: list[str] = []
     page.on("pageerror", lambda exc: errors.append(str(exc)))
 
     def shot(step: str) -> None:
-        page.screenshot(path=str(artifacts / f"stages-phone-{step}.png"), full_page=True)
+        page.screenshot(path=str(artifacts / f"stages-{name}-{step}.png"), full_page=True)
 
     def save() -> None:
         # Saved, the stage page loads again (HX-Redirect); refused, the form comes back.
