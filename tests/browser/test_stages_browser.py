@@ -1,7 +1,8 @@
 """A technician walks a whole flexible-wall test through its stages on a phone-sized viewport
 (390×844) and a tablet (1024×768): set-up, saturation, consolidation, permeation and after
 the test, each saved from the stage form with a decimal keypad and a unit picker, one
-refusal shown beside its field with the typed value kept; screenshots of each stage in test-artifacts/."""
+refusal shown beside its field with the typed value kept; screenshots of each stage in
+test-artifacts/."""
 
 from __future__ import annotations
 
