@@ -20,7 +20,6 @@ router = APIRouter(prefix="/api/v1", tags=["stages"])
 
 StageId = Literal[STAGE_IDS]  # type: ignore[valid-type]
 LoggerStage = Literal["consolidation", "permeation"]
-LOGGER_LIMIT = 4 * 1024 * 1024  # a logger file of a few thousand rows fits well within this
 
 _ERRORS: dict[int | str, dict[str, Any]] = {
     403: {"description": "Not allowed for your role or assignment"},
@@ -84,7 +83,7 @@ async def import_logger_file(
     """Take a logger file's rows as the stage's readings, read with the permeameter's
     mapping. Every refused cell is named by row and column; nothing is stored unless every
     row reads."""
-    table = await read_upload(file, file.filename or "", limit=LOGGER_LIMIT, field="file")
+    table = await read_upload(file, file.filename or "", limit=loggers.LOGGER_LIMIT, field="file")
     await anyio.to_thread.run_sync(
         functools.partial(loggers.import_readings, session, test_id, stage, table, actor=user)
     )

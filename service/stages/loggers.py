@@ -41,6 +41,7 @@ CHANNELS: dict[str, tuple[str, ...]] = {
         "temperature",
     ),
 }
+LOGGER_LIMIT = 4 * 1024 * 1024  # a logger file of a few thousand rows fits well within this
 WRITERS = frozenset({Role.TECHNICIAN, Role.LAB_MANAGER, Role.ADMIN})
 
 

@@ -13,14 +13,17 @@ from fastapi import APIRouter, Request
 from fastapi.responses import Response
 from markupsafe import Markup
 from sqlmodel import Session
+from starlette.datastructures import UploadFile
 
 from service.accounts.models import User
 from service.deps import LabStaff, SessionDep
-from service.errors import NotFound
+from service.errors import NotFound, invalid
+from service.exchange.files import read_table
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.reduction import Entry
 from service.samples.models import Sample
+from service.stages import loggers
 from service.stages import service as stages
 from service.stages.fields import STAGE_IDS, STAGES, StageSpec, stage_spec
 from service.stages.models import TestStage
@@ -246,6 +249,7 @@ def _context(
         plots=_plots(rows, stage) if stage else _plots(rows),
         next_stage=_next(stage),
         saved=request.query_params.get("saved") == "1",
+        takes_logger=stage in loggers.CHANNELS,
     )
 
 
@@ -307,6 +311,51 @@ def save_stage(
         general = [tried.message]
     context = _context(request, session, user, test_id, stage)
     context.update(values=values, errors=errors, general=general, saved=False)
+    return render(
+        request,
+        "tests/stages/stage.html",
+        context,
+        fragment="tests/stages/_form.html",
+        status_code=tried.status,
+    )
+
+
+@router.post("/{test_id}/stages/{stage}/logger")
+def import_logger_file(
+    request: Request,
+    test_id: int,
+    stage: str,
+    user: LabStaff,
+    session: SessionDep,
+    form: PostedForm,
+) -> Response:
+    """A logger file taken in as the stage's readings with the permeameter's mapping; every
+    refused cell listed by row and column, nothing stored until the file is clean."""
+    if stage not in loggers.CHANNELS:
+        raise NotFound(f"no logger stage {stage!r} (stages: {', '.join(loggers.CHANNELS)})")
+    upload = form.get("file")
+    with attempt(session) as tried:
+        if not isinstance(upload, UploadFile) or not upload.filename:
+            raise invalid(("file",), "is missing", accepted="a CSV or XLSX logger file")
+        try:
+            data = upload.file.read(loggers.LOGGER_LIMIT + 1)
+        finally:
+            upload.file.close()
+        if len(data) > loggers.LOGGER_LIMIT:
+            raise invalid(
+                ("file",),
+                f"is larger than {loggers.LOGGER_LIMIT // 1024} KiB",
+                accepted=f"a file of at most {loggers.LOGGER_LIMIT // 1024} KiB",
+            )
+        table = read_table(data, upload.filename, field="file")
+        loggers.import_readings(session, test_id, stage, table, actor=user)
+    if not tried.refused:
+        return redirect(request, f"/tests/{test_id}/stages/{stage}?saved=1")
+    context = _context(request, session, user, test_id, stage)
+    context["general"] = [
+        p.label if p.loc and p.loc[0] == "file" and p.label else p.msg for p in tried.problems
+    ] or [tried.message]
+    context["saved"] = False
     return render(
         request,
         "tests/stages/stage.html",

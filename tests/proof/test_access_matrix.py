@@ -202,6 +202,7 @@ ACCESS: dict[str, Access] = {
     "GET /tests/{test_id}/stages": Access(STAFF),
     "GET /tests/{test_id}/stages/{stage}": Access(STAFF),
     "POST /tests/{test_id}/stages/{stage}": Access(WRITERS, form_first=True),
+    "POST /tests/{test_id}/stages/{stage}/logger": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/trials/preview": Access(STAFF),
     "POST /tests/{test_id}/trials": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/trials/{trial_id}/exclude": Access(WRITERS),
@@ -391,6 +392,7 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
                 "channels": {"volume_change": {"column": "v", "unit": "mL"}},
             }
         },
+        "POST /tests/{test_id}/stages/{stage}/logger": lambda: {"files": _csv("t,v\n1,0.1\n")},
         "POST /tests/{test_id}/stages/{stage}": lambda: {
             "data": {
                 "e.diameter": "7.10",

@@ -15,6 +15,7 @@ from service.apparatus.models import Apparatus
 from service.common import ApparatusKind
 from service.lab_tests.models import TestApparatus
 from service.stages.models import TestStage
+from tests.auth_helpers import sign_in_cookie
 from tests.stages.conftest import Lab, flexible_test, put_stage
 
 CONSOLIDATION_MAPPING = {
@@ -138,3 +139,18 @@ def test_hostile_logger_files_are_refused_not_stored(lab: Lab, name: str, data: 
         select(TestStage).where(TestStage.test_id == test_id, TestStage.stage == "consolidation")
     ).one()
     assert "readings" not in row.typed
+
+
+def test_the_stage_page_takes_a_logger_file_and_lists_bad_cells(lab: Lab) -> None:
+    test_id = _ready(lab)
+    lab.session.commit()  # end the read transaction before this session writes
+    csrf = sign_in_cookie(lab.session, lab.client, lab.technician)
+    url = f"/tests/{test_id}/stages/consolidation/logger"
+    bad = CLEAN.replace("16,0.70", "16,0.7O")
+    refused = lab.client.post(url, files={"file": ("f.csv", bad.encode())}, headers=csrf)
+    assert refused.status_code == 422
+    assert "row 4, column &#39;Vol (mL)&#39;" in refused.text
+    saved = lab.client.post(
+        url, files={"file": ("f.csv", CLEAN.encode())}, headers=csrf, follow_redirects=False
+    )
+    assert saved.status_code == 303
