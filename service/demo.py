@@ -55,6 +55,9 @@ from service.series.service import (
     add_member,
     create_series,
 )
+from service.stages import service as stages
+from service.stages.example import example_stages
+from service.stages.models import StageName
 
 LAB_NAME = "Larkspur Soils Laboratory"
 # The demo laboratory's identity as its admin would keep it (all invented).
@@ -268,6 +271,14 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
         reviewer=reviewer,
         apparatus_ids=apparatus[TestMethod.FALLING_HEAD],
     )
+    _load_stages_test(
+        session,
+        now,
+        technician=technicians[0],
+        reviewer=reviewer,
+        manager=manager,
+        apparatus_ids=apparatus[_PLANS[0].method],
+    )
     return True
 
 
@@ -288,6 +299,94 @@ def _load_scope(session: Session, manager: User) -> None:
         ),
         actor=manager,
     )
+
+
+def _load_stages_test(
+    session: Session,
+    now: datetime,
+    *,
+    technician: User,
+    reviewer: User,
+    manager: User,
+    apparatus_ids: list[int],
+) -> None:
+    """One flexible-wall test through every stage (set-up to post-test), its permeation
+    intervals recorded as its trials, approved and issued: the reservoir core project."""
+    plan = _PLANS[0]
+    project = session.exec(select(Project).where(Project.number == plan.number)).one()
+    location = session.exec(select(Location).where(Location.project_id == project.id)).first()
+    assert location is not None
+    sample = _make_sample(
+        session, plan, project, location, plan.count, now - timedelta(days=9), manager
+    )
+    assert sample.id is not None
+    test = lab_tests.request_test(
+        session,
+        sample.id,
+        TestCreate.model_validate(
+            {
+                "method": plan.method,
+                "standard": plan.standard,
+                "technician_id": technician.id,
+                "apparatus_ids": apparatus_ids,
+                "cell_pressure": "465 kPa",
+                "back_pressure": "430 kPa",
+                "effective_confining": "35 kPa",
+            }
+        ),
+        actor=manager,
+    )
+    assert test.id is not None
+    written = {}
+    for day, (name, data) in enumerate(example_stages().items()):
+        data.started_at = now - timedelta(days=8 - day)
+        data.ended_at = now - timedelta(days=7 - day, hours=12)
+        written[name] = stages.write_stage(session, test.id, name, data, actor=technician)
+    setup = example_stages()[StageName.SETUP].entries
+    dims = written[StageName.CONSOLIDATION].outcome["dimensions"]
+    lab_tests.write_specimen(
+        session,
+        test.id,
+        SpecimenWrite(
+            preparation="remoulded",
+            diameter=setup["diameter"],
+            length=setup["length"],
+            wet_mass=setup["wet_mass"],
+            water_content=setup["water_content"],
+            specific_gravity=float(str(setup["specific_gravity"])),
+            final_diameter=f"{dims['diameter_m'] * 1000:.2f} mm",
+            final_length=f"{dims['length_m'] * 1000:.2f} mm",
+            description=plan.description,
+        ),
+        actor=technician,
+    )
+    for b_check in written[StageName.SATURATION].outcome["b_checks"]:
+        lab_tests.add_saturation_step(
+            session,
+            test.id,
+            SaturationStepCreate(
+                back_pressure=f"{b_check['back_pressure_pa'] / 1000:g} kPa",
+                b_value=round(b_check["b_value"], 3),
+            ),
+            actor=technician,
+        )
+    for seq, entries in enumerate(stages.permeation_trials(written[StageName.PERMEATION]), 1):
+        lab_tests.record_trial(
+            session,
+            test.id,
+            TrialCreate(**entries),
+            idempotency_key=f"demo-stages-{sample.lab_id}-{seq}",
+            actor=technician,
+        )
+    password = DEMO_PASSWORDS[technician.email][1]
+    lab_tests.submit_test(session, test.id, SignOffRequest(password=password), actor=technician)
+    lab_tests.approve_test(
+        session,
+        test.id,
+        SignOffRequest(password=DEMO_PASSWORDS[reviewer.email][1]),
+        actor=reviewer,
+    )
+    issue_sample_certificate(session, sample.id, actor=reviewer)
 
 
 def _load_apparatus(

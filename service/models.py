@@ -21,6 +21,7 @@ from service.samples.models import Sample
 from service.scope.models import ScopeRule, ScopeStandard, ScopeVersion
 from service.series.models import CompactionCurvePoint, CompactionSeries, SeriesMember
 from service.signoffs.models import SignOff
+from service.stages.models import LoggerMapping, TestStage
 from service.stored_text import install as install_stored_text_check
 
 __all__ = [
@@ -37,6 +38,7 @@ __all__ = [
     "IdempotencyRecord",
     "LabSettings",
     "Location",
+    "LoggerMapping",
     "Organisation",
     "PermeabilityTest",
     "Project",
@@ -51,6 +53,7 @@ __all__ = [
     "SignOff",
     "Specimen",
     "TestApparatus",
+    "TestStage",
     "Trial",
     "User",
 ]

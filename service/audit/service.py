@@ -37,6 +37,7 @@ OWNERS: dict[str, tuple[str, str]] = {
     "trial": ("test_id", "permeability_test"),
     "specimen": ("test_id", "permeability_test"),
     "saturation_step": ("test_id", "permeability_test"),
+    "test_stage": ("test_id", "permeability_test"),
     "sign_off": ("test_id", "permeability_test"),
     "test_apparatus": ("test_id", "permeability_test"),
     "reading": ("trial_id", "trial"),

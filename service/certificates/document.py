@@ -31,6 +31,8 @@ from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.scope.service import check_label, scope_of_test, source_words
 from service.signoffs.models import SignOff
+from service.stages.service import stages_of
+from service.stages.summary import summarise
 
 CAUTIONS = (
     "The results describe only the specimens tested, prepared and permeated under the "
@@ -130,6 +132,8 @@ class TestSection:
     decision_rule: str = ""  # in words, with ILAC-G8
     rules_words: str = ""  # the version of the laboratory's scope that judged the result
     in_scope: bool = False  # the standard is within the laboratory's accredited scope
+    # Flexible-wall tests: each recorded stage's title and its lines (label, value).
+    stages: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = ()
 
     @property
     def expanded_u_m_per_s(self) -> float | None:
@@ -425,6 +429,18 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
         decision_rule=decision_rule_words(result),
         rules_words=scope.rules_words,
         in_scope=scope.in_scope,
+        stages=_stage_lines(session, test.id),
+    )
+
+
+def _stage_lines(
+    session: Session, test_id: int
+) -> tuple[tuple[str, tuple[tuple[str, str], ...]], ...]:
+    """The recorded stages of a flexible-wall test, summarised (none for other tests)."""
+    return tuple(
+        (item.title, tuple(item.lines))
+        for item in summarise(stages_of(session, test_id), plain=True)
+        if item.recorded
     )
 
 

@@ -67,6 +67,7 @@ _REPLACEMENTS = {
     "²": "2",
     "³": "3",
     "…": "...",
+    "₄": "4",
 }
 
 
@@ -506,6 +507,7 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
         pdf.set_font("Helvetica", "B", 8.5)
         pdf.cell(0, 5, "Test conditions", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.key_values(test.conditions)
+    _stages_block(pdf, test)
     pdf.ln(1)
     pdf.ensure_space(20)
     pdf.set_font("Helvetica", "B", 8.5)
@@ -531,6 +533,21 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
         align=["CENTER", "LEFT", "RIGHT", "RIGHT", "RIGHT", "RIGHT", "CENTER"],
     )
     _result_block(pdf, test)
+
+
+def _stages_block(pdf: CertificatePDF, test: TestSection) -> None:
+    """Flexible-wall tests: each recorded stage with its figures."""
+    if not test.stages:
+        return
+    pdf.ln(1)
+    pdf.ensure_space(20)
+    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.cell(0, 5, "Stages of the flexible-wall test", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    for title, lines in test.stages:
+        pdf.ensure_space(10)
+        pdf.set_font("Helvetica", "I", 8.5)
+        pdf.cell(0, 4.6, latin1(title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        pdf.key_values(lines)
 
 
 def _result_block(pdf: CertificatePDF, test: TestSection) -> None:

@@ -45,6 +45,7 @@ class Scope(StrEnum):
     READING = "readings"
     OPTION = "options"
     SPECIFICATION = "specification"
+    STAGE = "stages"
 
 
 # How each section is named in a message, and whether its items are numbered ("Trial 3").
@@ -58,6 +59,7 @@ SECTION_WORDS: dict[str, str] = {
     "options": "Options",
     "specification": "Specification",
     "default_uncertainties": "Default uncertainty",
+    "stages": "Stage",
 }
 NUMBERED = frozenset({"saturation", "trials", "readings"})
 # Sections whose entries' labels say enough on their own.
@@ -493,6 +495,62 @@ TEST: tuple[Entry, ...] = (
 )
 # fmt: on
 
+# --- the stages of a flexible-wall test (set-up, saturation, consolidation, permeation, after) ---
+# The stage forms also use the specimen's, the test's and the trial's own entries (diameter,
+# cell pressure, temperature ...); these are the ones only a stage asks for.
+STG = Scope.STAGE
+# fmt: off
+STAGE: tuple[Entry, ...] = (
+    Entry("membrane", units.TEXT, STG, "Membrane", example="latex, 0.30 mm",
+          help="The membrane round the specimen: material and thickness."),
+    Entry("filter_papers", units.TEXT, STG, "Filter papers", example="one at each end",
+          help="Filter papers between the specimen and the porous stones."),
+    Entry("porous_stones", units.TEXT, STG, "Porous stones", example="boiled and de-aired",
+          help="The porous stones or discs and how they were prepared."),
+    _q("elapsed", units.TIME, STG, "Time", "30 min", unit=("min", "min"), positive=False,
+       help="Time since the stage started."),
+    _q("cell_pressure_before", units.PRESSURE, STG, "Cell pressure before", "350 kPa", "50.8 psi",
+       unit=("kPa", "psi"), positive=False, symbol="σ₃,0"),
+    _q("cell_pressure_after", units.PRESSURE, STG, "Cell pressure after", "400 kPa", "58.0 psi",
+       unit=("kPa", "psi"), positive=False, symbol="σ₃,1"),
+    _q("pore_pressure_before", units.PRESSURE, STG, "Pore pressure before", "330 kPa",
+       "47.9 psi", unit=("kPa", "psi"), positive=False, symbol="u₀"),
+    _q("pore_pressure_after", units.PRESSURE, STG, "Pore pressure after", "378 kPa", "54.8 psi",
+       unit=("kPa", "psi"), positive=False, symbol="u₁",
+       help="Pore pressure once it has settled after the cell-pressure rise."),
+    _q("volume_change", units.VOLUME, STG, "Volume change", "4.2 mL", unit=("mL", "mL"),
+       positive=False, symbol="ΔV",
+       help="Water expelled from the specimen since the stage started (compression positive)."),
+    _q("axial_change", L, STG, "Height decrease", "0.40 mm", "0.016 in", unit=("mm", "in"),
+       positive=False, symbol="ΔH",
+       help="Measured decrease of height; leave empty to take the strain as isotropic."),
+    Entry("permeation_method", units.CHOICE, STG, "Hydraulic system",
+          choices=("constant_head", "falling_head", "falling_head_rising_tail"),
+          help="ASTM D5084 A (constant head), B (falling head, constant tailwater) or C "
+          "(falling headwater, rising tailwater)."),
+    _q("headwater_reading", units.VOLUME, STG, "Headwater burette", "2.40 mL", unit=("mL", "mL"),
+       positive=False, resolution="0.05 mL",
+       help="Headwater burette scale reading (numbered from the top)."),
+    _q("tailwater_reading", units.VOLUME, STG, "Tailwater burette", "20.10 mL", unit=("mL", "mL"),
+       positive=False, resolution="0.05 mL",
+       help="Tailwater burette scale reading (numbered from the top)."),
+    _q("headwater_pressure", units.PRESSURE, STG, "Headwater pressure", "520 kPa", "75.4 psi",
+       unit=("kPa", "psi"), positive=False, symbol="p_hw"),
+    _q("tailwater_pressure", units.PRESSURE, STG, "Tailwater pressure", "500 kPa", "72.5 psi",
+       unit=("kPa", "psi"), positive=False, symbol="p_tw"),
+    Entry("new_run", units.FLAG, STG, "Burettes refilled",
+          help="The burettes were refilled or reset just before this reading."),
+    _q("post_diameter", L, STG, "Diameter after the test", "7.08 cm", "2.79 in",
+       unit=("cm", "in"), symbol="D_f"),
+    _q("post_length", L, STG, "Length after the test", "11.52 cm", "4.54 in", unit=("cm", "in"),
+       symbol="L_f"),
+    _q("post_wet_mass", units.MASS, STG, "Wet mass after the test", "566.0 g", unit=("g", "g"),
+       symbol="m_f", resolution="0.01 g"),
+    _q("post_dry_mass", units.MASS, STG, "Oven-dry mass", "462.0 g", unit=("g", "g"),
+       symbol="m_s", resolution="0.01 g", help="Mass of the whole specimen after oven drying."),
+)
+# fmt: on
+
 CATALOGUE: dict[Scope, tuple[Entry, ...]] = {
     Scope.TEST: TEST,
     Scope.SPECIMEN: SPECIMEN,
@@ -502,6 +560,7 @@ CATALOGUE: dict[Scope, tuple[Entry, ...]] = {
     Scope.READING: READING,
     Scope.OPTION: OPTIONS,
     Scope.SPECIFICATION: SPECIFICATION,
+    Scope.STAGE: STAGE,
 }
 
 # --- standards and methods ----------------------------------------------------------------------

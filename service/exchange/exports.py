@@ -30,6 +30,7 @@ from service.projects.models import Location, Project
 from service.samples.models import Sample
 from service.series.service import project_series_json
 from service.signoffs.models import SignOff
+from service.stages.service import stages_by_test
 from service.text import CONTROL_CHARACTERS, spreadsheet_text
 
 FORMAT_NAME = "seepline-project-export"
@@ -325,6 +326,7 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
     steps = by_test(SaturationStep)
     signoffs = by_test(SignOff)
     apparatus = by_test(tables.TestApparatus)
+    stages = stages_by_test(session, test_ids)
     trial_ids = [t.id for group in trials.values() for t in group]
     readings: dict[int, list[Reading]] = {}
     for reading in session.exec(select(Reading).where(col(Reading.trial_id).in_(trial_ids))).all():
@@ -356,6 +358,7 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
             **_dump(test),
             "specimen": _dump(specimen) if specimen else None,
             "saturation": [_dump(s) for s in sorted(steps.get(test.id, []), key=lambda s: s.seq)],
+            "stages": stages[test.id],
             "apparatus_ids": sorted(a.apparatus_id for a in apparatus.get(test.id, [])),
             "trials": [
                 {

@@ -37,6 +37,7 @@ from service.web.pages import layout_context
 from service.web.plots import k_per_trial_svg, k_time_svg, ln_head_time_svg, ln_head_trials_svg
 from service.web.queue import METHOD_WORDS, StaffUser
 from service.web.refusals import Attempt, attempt
+from service.web.stages import stages_context
 
 router = APIRouter(include_in_schema=False)
 
@@ -303,6 +304,7 @@ def review_context(
         notice=DONE_NOTICES.get(request.query_params.get("done", "")),
         issued_id=issued_id,
         issued_certificate=next((c for c in certificates if c.id == issued_id), None),
+        **stages_context(session, test),
     )
 
 

@@ -131,6 +131,12 @@ ACCESS: dict[str, Access] = {
     "POST /api/v1/tests/{test_id}/start": Access(WRITERS),
     "PATCH /api/v1/tests/{test_id}/specimen": Access(WRITERS),
     "POST /api/v1/tests/{test_id}/saturation": Access(WRITERS),
+    "GET /api/v1/tests/{test_id}/stages": _owned(SIGNED_IN),
+    "PUT /api/v1/tests/{test_id}/stages/{stage}": Access(WRITERS),
+    "POST /api/v1/tests/{test_id}/stages/{stage}/logger": Access(WRITERS),
+    "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": Access(
+        frozenset({"technician", "lab_manager", "admin"})
+    ),
     "GET /api/v1/tests/{test_id}/reduction": _owned(SIGNED_IN),
     "GET /api/v1/tests/{test_id}/recompute": _owned(SIGNED_IN),
     "POST /api/v1/tests/{test_id}/submit": Access(WRITERS),
@@ -212,6 +218,10 @@ ACCESS: dict[str, Access] = {
     "POST /tests/{test_id}/apparatus": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/conditions": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/saturation": Access(WRITERS, form_first=True),
+    "GET /tests/{test_id}/stages": Access(STAFF),
+    "GET /tests/{test_id}/stages/{stage}": Access(STAFF),
+    "POST /tests/{test_id}/stages/{stage}": Access(WRITERS, form_first=True),
+    "POST /tests/{test_id}/stages/{stage}/logger": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/trials/preview": Access(STAFF),
     "POST /tests/{test_id}/trials": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/trials/{trial_id}/exclude": Access(WRITERS),
@@ -281,6 +291,7 @@ def _path_values(key: str, identity: str, proof: Proof) -> dict[str, Any]:
         "project_id": proof.world.project.id,
         "test_id": _test_id_for(key, proof),
         "trial_id": proof.trial.id,
+        "stage": "consolidation" if "logger" in key else "setup",
         "user_id": proof.world.technician.id,
         "organisation_id": proof.world.client_org.id,
     }
@@ -456,6 +467,29 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
         "PATCH /api/v1/tests/{test_id}/specimen": lambda: {"json": {"wet_mass": "560.2 g"}},
         "POST /api/v1/tests/{test_id}/saturation": lambda: {
             "json": {"back_pressure": "520 kPa", "b_value": 0.97}
+        },
+        "PUT /api/v1/tests/{test_id}/stages/{stage}": lambda: {
+            "json": {"entries": {"diameter": "7.10 cm", "length": "7.50 cm", "wet_mass": "590 g"}}
+        },
+        "POST /api/v1/tests/{test_id}/stages/{stage}/logger": lambda: {
+            "files": _csv("t,v\n1,0.1\n")
+        },
+        "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": lambda: {
+            "json": {
+                "time": {"column": "t", "unit": "min"},
+                "channels": {"volume_change": {"column": "v", "unit": "mL"}},
+            }
+        },
+        "POST /tests/{test_id}/stages/{stage}/logger": lambda: {"files": _csv("t,v\n1,0.1\n")},
+        "POST /tests/{test_id}/stages/{stage}": lambda: {
+            "data": {
+                "e.diameter": "7.10",
+                "e.diameter.unit": "cm",
+                "e.length": "7.50",
+                "e.length.unit": "cm",
+                "e.wet_mass": "590",
+                "e.wet_mass.unit": "g",
+            }
         },
         "POST /api/v1/tests/{test_id}/submit": lambda: sign_off,
         "POST /api/v1/tests/{test_id}/approve": lambda: sign_off,
