@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from datetime import datetime
+from pathlib import Path
 
 import segno
 from fpdf import FPDF, FontFace
@@ -18,6 +19,7 @@ from service.certificates.document import (
     format_k,
 )
 from service.common import CertificateKind
+from service.figures import power_of_ten
 
 INK = (25, 32, 40)
 MUTED = (95, 104, 114)
@@ -36,38 +38,14 @@ COMPLIANCE_COLOURS = {
     "does_not_comply": (170, 30, 30),
     "no_limit": MUTED,
 }
-# The core PDF fonts cover Latin-1 only; these stand in for the rest.
-_REPLACEMENTS = {
-    "≤": "<=",
-    "≥": ">=",
-    "–": "-",
-    "—": "-",
-    "−": "-",
-    "‘": "'",
-    "’": "'",
-    "“": '"',
-    "”": '"',
-    "→": "->",
-    "√": "sqrt",
-    "Δ": "d",
-    "η": "eta",
-    "ρ": "rho",
-    "γ": "gamma",
-    "₀": "0",
-    "₁": "1",
-    "₂": "2",
-    "ₛ": "s",
-    "²": "2",
-    "³": "3",
-    "…": "...",
+# DejaVu Sans Condensed (Bitstream Vera licence, fonts/LICENSE-DejaVu.txt), embedded as a subset: it
+# draws ×, superscripts, ≤, ±, Greek symbols and client names in non-Latin scripts, which the
+# PDF core fonts cannot.
+FONT = "DejaVu"
+FONT_FILES = {
+    "": Path(__file__).with_name("fonts") / "DejaVuSansCondensed.ttf",
+    "B": Path(__file__).with_name("fonts") / "DejaVuSansCondensed-Bold.ttf",
 }
-
-
-def latin1(text: str) -> str:
-    """Text the core fonts can draw: known symbols spelled out, anything else as '?'."""
-    for char, spelled in _REPLACEMENTS.items():
-        text = text.replace(char, spelled)
-    return text.encode("latin-1", errors="replace").decode("latin-1")
 
 
 def _date(value: datetime) -> str:
@@ -78,32 +56,34 @@ class CertificatePDF(FPDF):
     def __init__(self, document: CertificateDocument) -> None:
         super().__init__(orientation="portrait", unit="mm", format="A4")
         self.document = document
+        for style, path in FONT_FILES.items():
+            self.add_font(FONT, style, str(path))
         self.set_margins(15, 24, 15)
         self.set_auto_page_break(auto=True, margin=20)
-        self.set_title(latin1(f"{document.title} {document.number} rev {document.revision}"))
-        self.set_author(latin1(document.lab.name))
+        self.set_title(f"{document.title} {document.number} rev {document.revision}")
+        self.set_author(document.lab.name)
         self.set_creator("Seepline")
-        self.set_subject(latin1(f"{document.project_number} {document.project_name}"))
+        self.set_subject(f"{document.project_number} {document.project_name}")
 
     def header(self) -> None:
         doc = self.document
         self.set_y(10)
-        self.set_font("Helvetica", "B", 10)
+        self.set_font(FONT, "B", 10)
         self.set_text_color(*ACCENT)
-        self.cell(110, 5, latin1(doc.lab.name))
-        self.set_font("Helvetica", "", 9)
+        self.cell(110, 5, (doc.lab.name))
+        self.set_font(FONT, "", 9)
         self.set_text_color(*INK)
         self.cell(
             0,
             5,
-            latin1(f"Certificate {doc.number}  rev {doc.revision}"),
+            (f"Certificate {doc.number}  rev {doc.revision}"),
             align="R",
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
         )
-        self.set_font("Helvetica", "", 7.5)
+        self.set_font(FONT, "", 7.5)
         self.set_text_color(*MUTED)
-        self.cell(110, 4, latin1(doc.lab.address.replace("\n", ", ")))
+        self.cell(110, 4, (doc.lab.address.replace("\n", ", ")))
         self.cell(0, 4, f"Issued {_date(doc.issued_at)}", align="R")
         self.set_draw_color(*RULE)
         self.line(15, 20, 195, 20)
@@ -115,12 +95,12 @@ class CertificatePDF(FPDF):
         self.set_y(-14)
         self.set_draw_color(*RULE)
         self.line(15, self.get_y() - 1, 195, self.get_y() - 1)
-        self.set_font("Helvetica", "", 7.5)
+        self.set_font(FONT, "", 7.5)
         self.set_text_color(*MUTED)
         self.cell(
             140,
             4,
-            latin1(f"Verification code {doc.verification_code}  -  {doc.verify_url}"),
+            (f"Verification code {doc.verification_code}  -  {doc.verify_url}"),
         )
         self.cell(0, 4, f"Page {self.page_no()} of {{nb}}", align="R")
 
@@ -129,9 +109,9 @@ class CertificatePDF(FPDF):
     def heading(self, text: str, size: float = 11) -> None:
         self.ensure_space(14)
         self.ln(2)
-        self.set_font("Helvetica", "B", size)
+        self.set_font(FONT, "B", size)
         self.set_text_color(*ACCENT)
-        self.cell(0, 6, latin1(text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        self.cell(0, 6, (text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         self.set_text_color(*INK)
         self.ln(0.5)
 
@@ -140,8 +120,8 @@ class CertificatePDF(FPDF):
             self.add_page()
 
     def paragraph(self, text: str, size: float = 8.5, style: str = "") -> None:
-        self.set_font("Helvetica", style, size)
-        self.multi_cell(0, size * 0.48, latin1(text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        self.set_font(FONT, style, size)
+        self.multi_cell(0, size * 0.48, (text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
 
     def key_values(
         self, rows: Sequence[tuple[str, str]], *, key_width: float = 42, width: float = 180
@@ -150,13 +130,13 @@ class CertificatePDF(FPDF):
         for key, value in rows:
             self.ensure_space(5)
             self.set_x(x0)
-            self.set_font("Helvetica", "", 8)
+            self.set_font(FONT, "", 8)
             self.set_text_color(*MUTED)
-            self.cell(key_width, 4.4, latin1(key))
+            self.cell(key_width, 4.4, (key))
             self.set_text_color(*INK)
-            self.set_font("Helvetica", "", 8.5)
+            self.set_font(FONT, "", 8.5)
             self.multi_cell(
-                width - key_width, 4.4, latin1(value or "-"), new_x=XPos.LMARGIN, new_y=YPos.NEXT
+                width - key_width, 4.4, (value or "-"), new_x=XPos.LMARGIN, new_y=YPos.NEXT
             )
 
     def table_rows(
@@ -169,7 +149,7 @@ class CertificatePDF(FPDF):
         font_size: float = 7.8,
         colours: Sequence[Sequence[tuple[int, int, int] | None]] | None = None,
     ) -> None:
-        self.set_font("Helvetica", "", font_size)
+        self.set_font(FONT, "", font_size)
         self.set_draw_color(*RULE)
         self.set_fill_color(255, 255, 255)
         heading_style = FontFace(emphasis="BOLD", color=INK, fill_color=SHADE)
@@ -184,13 +164,13 @@ class CertificatePDF(FPDF):
             borders_layout="HORIZONTAL_LINES",
             cell_fill_mode="NONE",
         ) as table:
-            table.row([latin1(h) for h in headings])
+            table.row(list(headings))
             for r, row in enumerate(rows):
                 line = table.row()
                 for c, text in enumerate(row):
                     colour = colours[r][c] if colours else None
                     style = FontFace(color=colour, emphasis="BOLD") if colour else None
-                    line.cell(latin1(text), style=style)
+                    line.cell(text, style=style)
         self.ln(1.5)
 
     def qr_code(self, url: str, x: float, y: float, size: float) -> None:
@@ -265,18 +245,18 @@ class CertificatePDF(FPDF):
 
         self.set_draw_color(*RULE)
         self.set_line_width(0.15)
-        self.set_font("Helvetica", "", 6.5)
+        self.set_font(FONT, "", 6.5)
         self.set_text_color(*MUTED)
         for exponent in range(lo, hi + 1):
             frac = log_pos(10.0**exponent)
             if log_axis == "y":
                 _, py = to_page(0, frac)
                 self.line(left, py, left + plot_w, py)
-                self.text(left - 11, py + 1, f"1E{exponent:+03d}")
+                self.text(left - 11, py + 1, power_of_ten("1", exponent).replace("1 × ", ""))
             else:
                 px, _ = to_page(frac, 0)
                 self.line(px, bottom - plot_h, px, bottom)
-                self.text(px - 5, bottom + 3.5, f"1E{exponent:+03d}")
+                self.text(px - 5, bottom + 3.5, power_of_ten("1", exponent).replace("1 × ", ""))
         ticks = _nice_ticks(lin_lo, lin_hi)
         for tick in ticks:
             frac = lin_pos(tick)
@@ -316,14 +296,14 @@ class CertificatePDF(FPDF):
                 self.set_draw_color(*MUTED)
                 self.circle(cx, cy, 0.9, style="D")
         self.set_text_color(*INK)
-        self.set_font("Helvetica", "", 7)
-        self.text(left + plot_w / 2 - len(x_label) * 0.6, bottom + 7.5, latin1(x_label))
-        self.text(x, y - 0.5, latin1(y_label))
-        self.set_font("Helvetica", "", 6.5)
+        self.set_font(FONT, "", 7)
+        self.text(left + plot_w / 2 - len(x_label) * 0.6, bottom + 7.5, (x_label))
+        self.text(x, y - 0.5, (y_label))
+        self.set_font(FONT, "", 6.5)
         self.set_text_color(*MUTED)
         if limit:
             legend += "; dashed red: specification limit"
-        self.text(left, bottom + 10.5, latin1(legend))
+        self.text(left, bottom + 10.5, (legend))
         self.set_text_color(*INK)
         self.set_line_width(0.2)
 
@@ -351,9 +331,9 @@ def _nice_ticks(lo: float, hi: float) -> list[float]:
 
 def _title_block(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     top = pdf.get_y()
-    pdf.set_font("Helvetica", "B", 15)
+    pdf.set_font(FONT, "B", 15)
     pdf.set_text_color(*INK)
-    pdf.multi_cell(140, 7, latin1(doc.title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.multi_cell(140, 7, (doc.title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.ln(1)
     pdf.key_values(
         [
@@ -369,18 +349,18 @@ def _title_block(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     )
     qr_size = 30.0
     pdf.qr_code(doc.verify_url, 195 - qr_size, top, qr_size)
-    pdf.set_font("Helvetica", "", 6.5)
+    pdf.set_font(FONT, "", 6.5)
     pdf.set_text_color(*MUTED)
     pdf.text(195 - qr_size + 1, top + qr_size + 3, "Scan to check this certificate")
     pdf.set_text_color(*INK)
     pdf.set_y(max(pdf.get_y(), top + qr_size + 5))
     if doc.supersedes:
         pdf.set_fill_color(*SHADE)
-        pdf.set_font("Helvetica", "B", 8.5)
+        pdf.set_font(FONT, "B", 8.5)
         text = f"This revision replaces certificate {doc.supersedes}."
         if doc.supersede_reason:
             text += f" Reason: {doc.supersede_reason}"
-        pdf.multi_cell(0, 4.6, latin1(text), fill=True, new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        pdf.multi_cell(0, 4.6, (text), fill=True, new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.ln(1)
 
 
@@ -395,7 +375,7 @@ def _parties(pdf: CertificatePDF, doc: CertificateDocument) -> None:
             ("Client", ", ".join(p for p in (doc.client.name, doc.client.address) if p)),
             ("Project", f"{doc.project_number}  {doc.project_name}"),
             ("Site", doc.site),
-            ("Specification limit", f"k20 <= {spec}" if doc.spec_text else spec),
+            ("Specification limit", f"k20 ≤ {spec}" if doc.spec_text else spec),
         ]
     )
 
@@ -425,9 +405,9 @@ def _side_by_side(
     height = 5 + 4.4 * max(len(left), len(right), 1)
     pdf.ensure_space(height)
     top = pdf.get_y()
-    pdf.set_font("Helvetica", "B", 8.5)
-    pdf.cell(88, 5, latin1(left_title))
-    pdf.cell(0, 5, latin1(right_title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.set_font(FONT, "B", 8.5)
+    pdf.cell(88, 5, (left_title))
+    pdf.cell(0, 5, (right_title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     start = pdf.get_y()
     pdf.key_values(left or [("-", "")], key_width=42, width=88)
     end_left = pdf.get_y()
@@ -467,12 +447,12 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
     )
     if test.conditions:
         pdf.ln(1)
-        pdf.set_font("Helvetica", "B", 8.5)
+        pdf.set_font(FONT, "B", 8.5)
         pdf.cell(0, 5, "Test conditions", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.key_values(test.conditions)
     pdf.ln(1)
     pdf.ensure_space(20)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Trials", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     trial_rows = []
     for trial in test.trials:
@@ -499,41 +479,39 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
 
 def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.ensure_space(62)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Result", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     top = pdf.get_y()
     u_text = "not evaluated (no input uncertainties recorded)"
     if test.expanded_u_m_per_s is not None and test.expanded_u_rel is not None:
         u_text = (
-            f"+/- {format_k(test.expanded_u_m_per_s)} m/s "
+            f"± {format_k(test.expanded_u_m_per_s)} m/s "
             f"({test.expanded_u_rel * 100:.1f} %, coverage factor k = 2, about 95 %)"
         )
     reference = f"{test.reference_temperature_c:g}"
     pdf.set_fill_color(*SHADE)
     pdf.rect(15, top, 92, 32, style="F")
     pdf.set_xy(17, top + 1.5)
-    pdf.set_font("Helvetica", "", 8)
+    pdf.set_font(FONT, "", 8)
     pdf.set_text_color(*MUTED)
     pdf.cell(0, 4, f"Hydraulic conductivity at {reference} °C, k{reference}")
     pdf.set_xy(17, top + 6)
-    pdf.set_font("Helvetica", "B", 14)
+    pdf.set_font(FONT, "B", 14)
     pdf.set_text_color(*INK)
     pdf.cell(0, 7, f"{format_k(test.k_ref_m_per_s)} m/s")
     pdf.set_xy(17, top + 13.5)
-    pdf.set_font("Helvetica", "", 7.5)
-    pdf.multi_cell(88, 3.6, latin1(f"Expanded uncertainty U: {u_text}"))
+    pdf.set_font(FONT, "", 7.5)
+    pdf.multi_cell(88, 3.6, f"Expanded uncertainty U: {u_text}")
     pdf.set_x(17)
-    alternates = f"= {test.k_ref_cm_per_s:.2E} cm/s" if test.k_ref_cm_per_s else ""
+    alternates = f"= {format_k(test.k_ref_cm_per_s)} cm/s" if test.k_ref_cm_per_s else ""
     if test.k_ref_ft_per_day:
-        alternates += f" = {test.k_ref_ft_per_day:.2E} ft/day"
-    pdf.multi_cell(88, 3.6, latin1(alternates))
+        alternates += f" = {format_k(test.k_ref_ft_per_day)} ft/day"
+    pdf.multi_cell(88, 3.6, alternates)
     pdf.set_x(17)
     pdf.multi_cell(
         88,
         3.6,
-        latin1(
-            f"k at test temperature (mean of determinations used): {format_k(test.k_m_per_s)} m/s"
-        ),
+        (f"k at test temperature (mean of determinations used): {format_k(test.k_m_per_s)} m/s"),
     )
     plot_points = [(float(t.seq), t.k_ref_m_per_s, t.used) for t in test.trials if t.k_ref_m_per_s]
     if plot_points:
@@ -549,12 +527,12 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
             limit=test.spec_limit_m_per_s,
         )
     pdf.set_y(top + 34)
-    pdf.set_font("Helvetica", "B", 9)
+    pdf.set_font(FONT, "B", 9)
     pdf.set_text_color(*COMPLIANCE_COLOURS.get(test.compliance, INK))
-    pdf.multi_cell(92, 4.4, latin1(test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.multi_cell(92, 4.4, (test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.set_text_color(*INK)
     if test.compliance != "no_limit" and test.expanded_u_m_per_s is not None:
-        pdf.set_font("Helvetica", "", 7)
+        pdf.set_font(FONT, "", 7)
         pdf.multi_cell(
             92,
             3.4,
@@ -565,7 +543,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
         )
     pdf.set_y(max(pdf.get_y(), top + 52))
     pdf.ln(1)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Checks of the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     rows = []
     colours = []
@@ -575,7 +553,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.table_rows(
         ["Check", "Status", "Finding"], rows, [40, 16, 124], colours=colours, font_size=7.4
     )
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Deviations from the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     if test.deviations:
         for deviation in test.deviations:
@@ -583,7 +561,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     else:
         pdf.paragraph("None: every evaluated check of the standard passed.", size=8)
     pdf.ln(1)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Sign-offs", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.table_rows(
         ["", "Name", "Role", "Date"],
@@ -599,12 +577,12 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
         or [["-", "no sign-offs recorded", "", ""]],
         [28, 70, 36, 46],
     )
-    pdf.set_font("Helvetica", "", 6.5)
+    pdf.set_font(FONT, "", 6.5)
     pdf.set_text_color(*MUTED)
     pdf.multi_cell(
         0,
         3,
-        latin1(
+        (
             f"Reduced by Seepline engine {test.engine_version}; "
             f"input hash {test.input_hash or '-'}; test record {test.test_id}."
         ),

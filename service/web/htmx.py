@@ -24,6 +24,7 @@ from service import __version__
 from service.config import get_settings
 from service.db import PROJECT_ROOT
 from service.web.display import install as install_display_filters
+from service.web.entries import NUMBER_PATTERN, entry_label
 
 
 async def posted_form(request: Request) -> FormData:
@@ -81,6 +82,8 @@ def _make_templates() -> Jinja2Templates:
     env.globals["htmx_script"] = HTMX_SCRIPT
     env.globals["app_version"] = __version__
     env.globals["lab_name"] = get_settings().lab_name
+    env.globals["number_pattern"] = NUMBER_PATTERN
+    env.globals["entry_label"] = entry_label
     env.trim_blocks = True
     env.lstrip_blocks = True
     return templates

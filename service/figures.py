@@ -1,0 +1,118 @@
+"""How every figure is written, on pages, certificates and exports alike: scientific notation
+with a real superscript (5.70 × 10⁻¹⁰ m/s), unit symbols with superscripts (cm², g/cm³, °C),
+a typed value shown with the significant figures it was typed with, and SI figures shown in
+the user's display units (SI or US customary).
+
+Stored values stay SI; only the display changes. Factors are exact definitions: 1 ft =
+0.3048 m, 1 lb = 0.45359237 kg (international yard and pound, 1959), 1 day = 86 400 s,
+1 psi = 6.894757293168361 kPa (from the pound-force and the inch)."""
+
+from __future__ import annotations
+
+import math
+import re
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+FT = 0.3048
+LB = 0.45359237
+# quantity -> {units: (label, factor from the SI value, use scientific notation)}
+DISPLAY: dict[str, dict[str, tuple[str, float, bool]]] = {
+    "k": {"si": ("m/s", 1.0, True), "us": ("ft/day", 86_400 / FT, True)},
+    "length": {"si": ("m", 1.0, False), "us": ("ft", 1 / FT, False)},
+    "small_length": {"si": ("mm", 1e3, False), "us": ("in", 1 / 0.0254, False)},
+    "specimen_length": {"si": ("cm", 1e2, False), "us": ("in", 1 / 0.0254, False)},
+    "density": {"si": ("kg/m³", 1.0, False), "us": ("lb/ft³", FT**3 / LB, False)},
+    "pressure": {"si": ("kPa", 1.0, False), "us": ("psi", 1 / 6.894757293168361, False)},
+    "area": {"si": ("m²", 1.0, True), "us": ("in²", 1 / 0.0254**2, False)},
+    "specimen_area": {"si": ("cm²", 1e4, False), "us": ("in²", 1 / 0.0254**2, False)},
+}
+
+# Unit words as pint reads them -> the symbol printed.
+_UNIT_WORDS = (
+    ("delta_degC", "K"),
+    ("degC", "°C"),
+    ("degF", "°F"),
+    ("ohm", "Ω"),
+    ("micro", "µ"),
+)
+_POWER = re.compile(r"(\*\*|\^)\s*(-?\d+)")
+_BARE_POWER = re.compile(r"(?<=[A-Za-z])([23])(?![\d.])")
+_TYPED = re.compile(r"^\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+))(?:[eE]([-+]?\d+))?\s*(.*?)\s*$")
+
+
+def system(units: str | None) -> str:
+    """'us' for US customary, 'si' for anything else."""
+    return "us" if units == "us" else "si"
+
+
+def unit_symbol(unit: str) -> str:
+    """A unit as printed: 'cm**2' -> 'cm²', 'g/cm**3' -> 'g/cm³', 'degC' -> '°C',
+    'mPa*s' -> 'mPa·s', 'kg/m3' -> 'kg/m³' (typography: common practice, no source)."""
+    text = unit.strip()
+    for word, symbol in _UNIT_WORDS:
+        text = text.replace(word, symbol)
+    text = _POWER.sub(lambda m: m.group(2).translate(_SUPERSCRIPT), text)
+    text = _BARE_POWER.sub(lambda m: m.group(1).translate(_SUPERSCRIPT), text)
+    return text.replace("*", "·")
+
+
+def power_of_ten(mantissa: str, exponent: int) -> str:
+    """'5.70', -10 -> '5.70 × 10⁻¹⁰'."""
+    return f"{mantissa} × 10{str(exponent).translate(_SUPERSCRIPT)}"
+
+
+def sci_text(value: float | None, digits: int = 3) -> str:
+    """A figure in scientific notation with a real superscript: 1.76 × 10⁻⁹; figures from
+    0.01 to 9999 are written out."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    if value == 0:
+        return "0"
+    exponent = math.floor(math.log10(abs(value)))
+    if -2 <= exponent <= 3:
+        return number(value, digits)
+    mantissa = value / 10**exponent
+    if round(abs(mantissa), digits - 1) >= 10:
+        mantissa /= 10
+        exponent += 1
+    return power_of_ten(f"{mantissa:.{digits - 1}f}", exponent)
+
+
+def number(value: float | None, digits: int = 3) -> str:
+    """A plain figure to `digits` significant digits (trailing zeros dropped: a computed
+    figure claims no more than it has); whole numbers below a million written out, never as
+    1.99e+03; very small or large ones as a power of ten; a dash when there is none."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    if 10**digits <= abs(value) < 1e6:
+        return f"{value:.0f}"
+    text = f"{value:.{digits}g}"
+    return sci_text(value, digits) if "e" in text else text
+
+
+def unit_label(quantity: str, units: str | None) -> str:
+    """The unit a quantity is shown in for the user's unit system."""
+    return DISPLAY[quantity][system(units)][0]
+
+
+def show_text(value: float | None, quantity: str, units: str | None = "si", digits: int = 3) -> str:
+    """`value` (SI) converted to the user's units, formatted, with the unit after it."""
+    label, factor, scientific = DISPLAY[quantity][system(units)]
+    if value is None:
+        return "—"
+    converted = value * factor
+    text = sci_text(converted, digits) if scientific else number(converted, digits)
+    return f"{text} {label}"
+
+
+def typed(text: str) -> str:
+    """A value as typed, printed: the figures typed kept ('1.90 m' stays '1.90 m'), an
+    exponent as a power of ten ('1e-9 m/s' -> '1 × 10⁻⁹ m/s'), the unit as a symbol
+    ('39.6 cm**2' -> '39.6 cm²'). Text that is not a number and a unit is left alone."""
+    match = _TYPED.match(text or "")
+    if match is None:
+        return text or ""
+    mantissa, exponent, unit = match.groups()
+    figure = power_of_ten(mantissa, int(exponent)) if exponent else mantissa
+    return f"{figure} {unit_symbol(unit)}".strip()

@@ -1,0 +1,103 @@
+"""The one formatter: how figures and units are printed on pages and certificates.
+
+Typography throughout is common practice, no source: a power of ten written with the
+multiplication sign and a superscript exponent, unit powers as superscripts, the degree
+sign for Celsius and Fahrenheit, the middle dot for a product of units, and a measured value
+shown with the figures it was typed with. Conversion factors are exact definitions
+(international foot and pound, 1959; 1 day = 86 400 s)."""
+
+from __future__ import annotations
+
+import pytest
+
+from service.figures import number, sci_text, show_text, typed, unit_symbol
+
+
+@pytest.mark.parametrize(
+    ("value", "expected"),
+    [
+        (5.70028840509214e-10, "5.70 × 10⁻¹⁰"),
+        (1e-9, "1.00 × 10⁻⁹"),
+        (9.996e-8, "1.00 × 10⁻⁷"),  # rounding carries into the exponent
+        (-2.5e-5, "-2.50 × 10⁻⁵"),
+        (3.2e7, "3.20 × 10⁷"),
+        (0.05, "0.05"),
+        (0, "0"),
+        (None, "—"),
+        (float("nan"), "—"),
+    ],
+)
+def test_scientific_notation_has_a_times_sign_and_superscript(
+    value: float | None, expected: str
+) -> None:
+    # Common practice, no source.
+    assert sci_text(value) == expected
+
+
+@pytest.mark.parametrize("value", [1e-9, 2.3e-12, 4.4e8, 1.2e-15])
+def test_no_e_notation_ever(value: float) -> None:
+    # Common practice, no source: "1e-9" and "1e-09" are programmers' notation.
+    for text in (sci_text(value), number(value), show_text(value, "k")):
+        assert "e-" not in text
+        assert "e+" not in text
+
+
+@pytest.mark.parametrize(
+    ("unit", "expected"),
+    [
+        ("cm**2", "cm²"),
+        ("g/cm**3", "g/cm³"),
+        ("lb/ft**3", "lb/ft³"),
+        ("kN/m**3", "kN/m³"),
+        ("m^2", "m²"),
+        ("kg/m3", "kg/m³"),
+        ("degC", "°C"),
+        ("degF", "°F"),
+        ("mPa*s", "mPa·s"),
+        ("m**3/s", "m³/s"),
+        ("mL/min", "mL/min"),
+        ("m**-1", "m⁻¹"),
+    ],
+)
+def test_unit_symbols_use_superscripts(unit: str, expected: str) -> None:
+    # Common practice, no source.
+    assert unit_symbol(unit) == expected
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("2.70", "2.70"),  # Gs keeps its trailing zero
+        ("1.90 m", "1.90 m"),  # a depth keeps its second decimal
+        ("7.10 cm", "7.10 cm"),
+        ("39.6 cm**2", "39.6 cm²"),
+        ("1.68 g/cm**3", "1.68 g/cm³"),
+        ("1e-9 m/s", "1 × 10⁻⁹ m/s"),
+        ("5.70e-10 m/s", "5.70 × 10⁻¹⁰ m/s"),
+        ("21.5 degC", "21.5 °C"),
+        ("de-aired tap water", "de-aired tap water"),
+    ],
+)
+def test_typed_values_keep_the_figures_typed(text: str, expected: str) -> None:
+    # Common practice, no source: a measured value is reported to the resolution it was read.
+    assert typed(text) == expected
+
+
+@pytest.mark.parametrize(
+    ("value", "quantity", "units", "expected"),
+    [
+        (5.7e-10, "k", "si", "5.70 × 10⁻¹⁰ m/s"),
+        # 5.7e-10 m/s × 86 400 s/day ÷ 0.3048 m/ft = 1.6157e-4 ft/day (exact factors)
+        (5.7e-10, "k", "us", "1.62 × 10⁻⁴ ft/day"),
+        (1680.0, "density", "si", "1680 kg/m³"),
+        # 1680 kg/m³ × 0.3048³ m³/ft³ ÷ 0.45359237 kg/lb = 104.88 lb/ft³
+        (1680.0, "density", "us", "105 lb/ft³"),
+        (345.0, "pressure", "si", "345 kPa"),
+        # 345 kPa ÷ 6.894757 kPa/psi = 50.04 psi
+        (345.0, "pressure", "us", "50 psi"),
+    ],
+)
+def test_figures_shown_in_the_users_units(
+    value: float, quantity: str, units: str, expected: str
+) -> None:
+    assert show_text(value, quantity, units) == expected
