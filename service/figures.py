@@ -116,3 +116,17 @@ def typed(text: str) -> str:
     mantissa, exponent, unit = match.groups()
     figure = power_of_ten(mantissa, int(exponent)) if exponent else mantissa
     return f"{figure} {unit_symbol(unit)}".strip()
+
+
+def typed_and_shown(
+    text: str, value: float | None, quantity: str, units: str | None = "si", digits: int = 3
+) -> str:
+    """A typed value, then the same in the user's display unit when it was typed in another
+    ('15.0 cm (150 mm)'); never the same figure twice ('345 kPa', not '345 kPa (345 kPa)')."""
+    shown = typed(text)
+    if value is None:
+        return shown
+    label = unit_label(quantity, units)
+    if not shown or shown.endswith(" " + label):
+        return shown or show_text(value, quantity, units, digits)
+    return f"{shown} ({show_text(value, quantity, units, digits)})"

@@ -4,7 +4,15 @@ from __future__ import annotations
 
 from markupsafe import Markup
 
-from service.figures import number, sci_text, show_text, typed, unit_label, unit_symbol
+from service.figures import (
+    number,
+    sci_text,
+    show_text,
+    typed,
+    typed_and_shown,
+    unit_label,
+    unit_symbol,
+)
 
 __all__ = ["install", "number", "sci", "show", "unit_label"]
 
@@ -35,3 +43,4 @@ def install(env_filters: dict[str, object]) -> None:
     env_filters["unit_label"] = unit_label
     env_filters["typed"] = typed
     env_filters["unit_symbol"] = unit_symbol
+    env_filters["typed_and_shown"] = typed_and_shown

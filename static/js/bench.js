@@ -81,8 +81,11 @@
 
   document.addEventListener("htmx:after:swap", markInvalidFields);
 
+  // A field inside a closed <details> still has a box in Chromium (its content is only
+  // content-visibility: hidden), but it cannot take focus: skip it.
   function visible(element) {
-    return !element.disabled && element.getClientRects().length > 0;
+    if (element.disabled || element.closest("details:not([open])")) return false;
+    return element.getClientRects().length > 0;
   }
 
   document.addEventListener("keydown", function (event) {

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import pytest
 
-from service.figures import number, sci_text, show_text, typed, unit_symbol
+from service.figures import number, sci_text, show_text, typed, typed_and_shown, unit_symbol
 
 
 @pytest.mark.parametrize(
@@ -101,3 +101,19 @@ def test_figures_shown_in_the_users_units(
     value: float, quantity: str, units: str, expected: str
 ) -> None:
     assert show_text(value, quantity, units) == expected
+
+
+@pytest.mark.parametrize(
+    ("text", "value", "quantity", "units", "expected"),
+    [
+        ("345 kPa", 345.0, "pressure", "si", "345 kPa"),  # never "345 kPa (345 kPa)"
+        # 15.0 cm = 150 mm
+        ("15.0 cm", 0.15, "small_length", "si", "15.0 cm (150 mm)"),
+        # 345 kPa ÷ 6.894757 kPa/psi = 50.04 psi
+        ("345 kPa", 345.0, "pressure", "us", "345 kPa (50 psi)"),
+    ],
+)
+def test_a_typed_value_is_not_repeated_in_the_same_unit(
+    text: str, value: float, quantity: str, units: str, expected: str
+) -> None:
+    assert typed_and_shown(text, value, quantity, units) == expected
