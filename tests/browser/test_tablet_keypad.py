@@ -134,6 +134,9 @@ def test_a_trial_by_keypad_picker_and_stopwatch(
         )
         check_accessibility_basics(page)
         shot("3-trial-live")
+        page.locator("#trial-new").screenshot(
+            path=str(artifacts / f"keypad-3-trial-form-{name}.png"), caret="initial"
+        )
         trial.get_by_test_id("save-trial").tap()
         page.get_by_text("Trial 1 saved.").wait_for()
         saved = page.get_by_test_id("saved-trials").inner_text()
