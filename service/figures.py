@@ -130,3 +130,16 @@ def typed_and_shown(
     if not shown or shown.endswith(" " + label):
         return shown or show_text(value, quantity, units, digits)
     return f"{shown} ({show_text(value, quantity, units, digits)})"
+
+
+def at_least_decimals(value: float | None, decimals: int = 2) -> str:
+    """A figure stored as a float, with at least `decimals` decimals, as such figures are
+    typed and reported (a specific gravity 2.70, not 2.7; common practice, no source)."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    text = repr(float(value))
+    if "e" in text:
+        return number(value)
+    whole, _, fraction = text.partition(".")
+    fraction = fraction.rstrip("0")
+    return f"{whole}.{fraction.ljust(decimals, '0')}"

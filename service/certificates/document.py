@@ -17,7 +17,7 @@ from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
 from service.common import CertificateKind, OrganisationKind, Preparation
 from service.config import get_settings
-from service.figures import sci_text, typed
+from service.figures import at_least_decimals, sci_text, typed
 from service.lab_tests.models import (
     PermeabilityTest,
     SaturationStep,
@@ -238,7 +238,8 @@ def _specimen_rows(
                 measured.append((entry.label, typed(text)))
         if specimen.specific_gravity is not None:
             gravity = catalogue.entry(Scope.SPECIMEN, "specific_gravity")
-            measured.append((f"{gravity.label} {gravity.symbol}", f"{specimen.specific_gravity:g}"))
+            gravity_text = at_least_decimals(specimen.specific_gravity)
+            measured.append((f"{gravity.label} {gravity.symbol}", gravity_text))
     derived = result.get("specimen", {}) or {}
     state: list[tuple[str, str]] = []
     for label, key, pattern, scale, unit in (

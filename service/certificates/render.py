@@ -442,9 +442,7 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
         rows.append(("Correction", test.correction_reason))
     pdf.key_values(rows)
     pdf.ln(1)
-    _side_by_side(
-        pdf, "Specimen as measured", test.measured, "Specimen state (derived)", test.state
-    )
+    _side_by_side(pdf, "Specimen as prepared", test.measured, "At permeation (derived)", test.state)
     if test.conditions:
         pdf.ln(1)
         pdf.set_font(FONT, "B", 8.5)

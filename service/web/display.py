@@ -5,6 +5,7 @@ from __future__ import annotations
 from markupsafe import Markup
 
 from service.figures import (
+    at_least_decimals,
     number,
     sci_text,
     show_text,
@@ -44,3 +45,4 @@ def install(env_filters: dict[str, object]) -> None:
     env_filters["typed"] = typed
     env_filters["unit_symbol"] = unit_symbol
     env_filters["typed_and_shown"] = typed_and_shown
+    env_filters["at_least_decimals"] = at_least_decimals

@@ -32,6 +32,7 @@ from service.common import ApparatusKind, Preparation, Role
 from service.db import utcnow
 from service.deps import CurrentUser, SessionDep
 from service.errors import FieldProblem, PermissionDenied, StaleVersion
+from service.figures import at_least_decimals
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.reduction import Reduction, Scope, catalogue, reduce_stored, trial_notes
@@ -264,7 +265,7 @@ def _specimen_values(record: lab_tests.TestRecord) -> dict[str, Any]:
     for entry in specimen_entries():
         values[f"specimen.{entry.key}"] = getattr(specimen, f"{entry.key}_text", "")
     if specimen.specific_gravity is not None:
-        values["specimen.specific_gravity"] = f"{specimen.specific_gravity:g}"
+        values["specimen.specific_gravity"] = at_least_decimals(specimen.specific_gravity)
     if specimen.retained_on_lower_sieve_pct is not None:
         values["specimen.retained_on_lower_sieve"] = f"{specimen.retained_on_lower_sieve_pct:g} %"
     values["specimen.stiff_material"] = specimen.stiff_material

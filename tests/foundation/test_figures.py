@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import pytest
 
-from service.figures import number, sci_text, show_text, typed, typed_and_shown, unit_symbol
+from service.figures import at_least_decimals, number, sci_text, show_text, typed, typed_and_shown, unit_symbol
 
 
 @pytest.mark.parametrize(
@@ -117,3 +117,11 @@ def test_a_typed_value_is_not_repeated_in_the_same_unit(
     text: str, value: float, quantity: str, units: str, expected: str
 ) -> None:
     assert typed_and_shown(text, value, quantity, units) == expected
+
+
+@pytest.mark.parametrize(
+    ("value", "expected"), [(2.7, "2.70"), (2.715, "2.715"), (3.0, "3.00"), (None, "—")]
+)
+def test_specific_gravity_keeps_two_decimals(value: float | None, expected: str) -> None:
+    # Common practice, no source: Gs is reported to two decimals at least (2.70).
+    assert at_least_decimals(value) == expected

@@ -8,12 +8,26 @@ import re
 from fastapi.testclient import TestClient
 from sqlmodel import Session
 
-from service.common import TestState
+from service.common import Preparation, TestState
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.schemas import SendBackRequest, SignOffRequest
+from service.lab_tests.schemas import (
+    SendBackRequest,
+    SignOffRequest,
+    SpecimenWrite,
+    TrialCreate,
+    TrialExclusion,
+)
 from service.signoffs.service import sign_offs_of
-from tests.web.manager.conftest import HTMX, PASSWORD, Lab, new_test, signed_in, submitted_test
+from tests.web.manager.conftest import (
+    HTMX,
+    PASSWORD,
+    Lab,
+    falling_head_entries,
+    new_test,
+    signed_in,
+    submitted_test,
+)
 
 
 def _state(session: Session, test_id: int | None) -> str:
@@ -313,3 +327,57 @@ def test_planned_test_has_nothing_to_decide(
     page = web_client.get(f"/tests/{test.id}/review").text
     assert 'data-testid="not-submitted"' in page
     assert 'data-testid="no-result"' in page
+
+
+def test_dimensions_say_which_state_they_describe_and_trials_count_all_recorded(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = new_test(session, lab)
+    assert test.id is not None
+    lab_tests.write_specimen(
+        session,
+        test.id,
+        SpecimenWrite(
+            preparation=Preparation.INTACT,
+            diameter="71.0 mm",
+            length="116.0 mm",
+            final_diameter="70.8 mm",
+            final_length="115.2 mm",
+            wet_mass="912.4 g",
+            water_content="22.0 %",
+            specific_gravity=2.70,
+        ),
+        actor=lab.technician,
+    )
+    written = [
+        lab_tests.record_trial(
+            session,
+            test.id,
+            TrialCreate(**falling_head_entries(k)),
+            idempotency_key=f"dims-{seq}",
+            actor=lab.technician,
+        )
+        for seq, k in enumerate((2.0e-10, 2.1e-10, 1.95e-10, 2.05e-10, 9.0e-10), start=1)
+    ]
+    odd = written[-1].trial
+    assert odd.id is not None
+    lab_tests.exclude_trial(
+        session,
+        test.id,
+        odd.id,
+        TrialExclusion(version=odd.version, reason="air bubble in the standpipe"),
+        actor=lab.technician,
+    )
+    lab_tests.submit_test(session, test.id, SignOffRequest(password=PASSWORD), actor=lab.technician)
+    session.commit()
+    signed_in(session, web_client, lab.reviewer)
+    text = web_client.get(f"/tests/{test.id}/review").text
+    state = text.split('data-testid="specimen-state"')[1].split("</dl>")[0]
+    assert "Diameter × length, as prepared" in state
+    assert "71.0 mm × 116.0 mm" in state
+    assert "Diameter × length, at permeation" in state
+    assert "70.8 mm × 115.2 mm" in state
+    assert "Dry density, at permeation" in state
+    assert "2.70" in state  # Gs as it is reported, not 2.7
+    averaged = text.split('data-testid="trials-averaged"')[1].split("</dd>")[0]
+    assert "4 of 5 recorded" in averaged
