@@ -10,7 +10,15 @@ from __future__ import annotations
 
 import pytest
 
-from service.figures import at_least_decimals, number, sci_text, show_text, typed, typed_and_shown, unit_symbol
+from service.figures import (
+    at_least_decimals,
+    number,
+    sci_text,
+    show_text,
+    typed,
+    typed_and_shown,
+    unit_symbol,
+)
 
 
 @pytest.mark.parametrize(
