@@ -6,8 +6,9 @@ import secrets
 from functools import lru_cache
 from pathlib import Path
 from typing import Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import Field, model_validator
+from pydantic import Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 PLACEHOLDER_SECRETS = frozenset({"", "changeme", "change-me", "secret", "dev", "development"})
@@ -25,6 +26,9 @@ class Settings(BaseSettings):
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=1, le=65535)
     lab_name: str = "Seepline Soil Laboratory"
+    # The laboratory's time zone (IANA name, e.g. Europe/Berlin): times on pages are shown in
+    # it; stored times stay UTC.
+    lab_timezone: str = "UTC"
     public_base_url: str = "http://127.0.0.1:8000"
     # Argon2 work factors: the library defaults in production, cheaper in tests.
     argon2_time_cost: int = Field(default=3, ge=1)
@@ -49,6 +53,18 @@ class Settings(BaseSettings):
     # BENCH_ANCHORS=1 serves the bare speed anchors of scripts/bench_load.py
     # (service/api/bench_anchors.py); off by default, and never served in production.
     bench_anchors: bool = False
+
+    @field_validator("lab_timezone")
+    @classmethod
+    def _known_timezone(cls, value: str) -> str:
+        try:
+            ZoneInfo(value)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ValueError(
+                f"LAB_TIMEZONE {value!r} is not a known time zone; use an IANA name such as "
+                "'UTC' or 'Europe/Berlin'"
+            ) from None
+        return value
 
     @model_validator(mode="after")
     def _secret_key_is_real(self) -> Settings:

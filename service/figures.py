@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 import re
+from datetime import UTC, datetime
+from zoneinfo import ZoneInfo
 
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
@@ -38,7 +40,11 @@ _UNIT_WORDS = (
 )
 _POWER = re.compile(r"(\*\*|\^)\s*(-?\d+)")
 _BARE_POWER = re.compile(r"(?<=[A-Za-z])([23])(?![\d.])")
-_TYPED = re.compile(r"^\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+))(?:[eE]([-+]?\d+))?\s*(.*?)\s*$")
+# A number, then nothing or a unit (a unit starts with a letter or a symbol, never a digit or
+# a point: "1.1.0" is a version, not 1.1 of a unit ".0").
+_TYPED = re.compile(
+    r"^\s*([-+]?(?:\d+(?:\.\d*)?|\.\d+))(?:[eE]([-+]?\d+))?(?:\s*([^\d\s.,:\-].*?))?\s*$"
+)
 
 
 def system(units: str | None) -> str:
@@ -115,7 +121,7 @@ def typed(text: str) -> str:
         return text or ""
     mantissa, exponent, unit = match.groups()
     figure = power_of_ten(mantissa, int(exponent)) if exponent else mantissa
-    return f"{figure} {unit_symbol(unit)}".strip()
+    return f"{figure} {unit_symbol(unit or '')}".strip()
 
 
 def typed_and_shown(
@@ -143,3 +149,61 @@ def at_least_decimals(value: float | None, decimals: int = 2) -> str:
     whole, _, fraction = text.partition(".")
     fraction = fraction.rstrip("0")
     return f"{whole}.{fraction.ljust(decimals, '0')}"
+
+
+def local_time(moment: datetime | None, zone: str = "UTC") -> str:
+    """A stored (UTC) time in the laboratory's zone, to the minute, with the zone's name:
+    '2026-12-02 14:05 CET'; never microseconds."""
+    if moment is None:
+        return "—"
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    return moment.astimezone(ZoneInfo(zone)).strftime("%Y-%m-%d %H:%M %Z")
+
+
+_TIMESTAMP = re.compile(r"^\d{4}-\d\d-\d\d[T ]\d\d:\d\d")
+# A stored column's unit suffix -> the unit printed after its value.
+_COLUMN_UNITS = (
+    ("_m_per_s", "m/s"),
+    ("_kg_per_m3", "kg/m³"),
+    ("_kpa", "kPa"),
+    ("_pa", "Pa"),
+    ("_m2", "m²"),
+    ("_m3", "m³"),
+    ("_kg", "kg"),
+    ("_pct", "%"),
+    ("_c", "°C"),
+    ("_m", "m"),
+    ("_s", "s"),
+)
+
+
+def column_unit(column: str) -> tuple[str, str]:
+    """A column name split into its name and its unit: 'result_k_ref_m_per_s' ->
+    ('result_k_ref', 'm/s'); a column without a unit suffix -> (column, '')."""
+    for suffix, unit in _COLUMN_UNITS:
+        if column.endswith(suffix):
+            return column[: -len(suffix)], unit
+    return column, ""
+
+
+def stored_value(text: str | None, unit: str = "", zone: str = "UTC") -> str:
+    """A value as the audit log keeps it (text), for reading: numbers rounded to three
+    significant figures with their unit ('5.70028840509214e-10', 'm/s' -> '5.70 × 10⁻¹⁰
+    m/s'), times in the laboratory's zone to the minute, typed quantities with unit symbols,
+    anything else as it is."""
+    if text is None or text == "":
+        return "—"
+    if _TIMESTAMP.match(text):
+        try:
+            return local_time(datetime.fromisoformat(text), zone)
+        except ValueError:
+            return text
+    try:
+        value = float(text)
+    except ValueError:
+        return typed(text)
+    if not math.isfinite(value):
+        return text
+    figure = sci_text(value) if value != 0 and abs(value) < 1e-2 else number(value)
+    return f"{figure} {unit}".strip()

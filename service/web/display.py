@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+from datetime import datetime
+
 from markupsafe import Markup
 
+from service.config import get_settings
 from service.figures import (
     at_least_decimals,
+    local_time,
     number,
     sci_text,
     show_text,
@@ -35,6 +39,11 @@ def show(value: float | None, quantity: str, units: str | None = "si", digits: i
     return Markup('<span class="sci">{}</span> {}').format(figure, unit)
 
 
+def lab_time(moment: datetime | None) -> str:
+    """A stored time in the laboratory's time zone (LAB_TIMEZONE), to the minute."""
+    return local_time(moment, get_settings().lab_timezone)
+
+
 def install(env_filters: dict[str, object]) -> None:
     """Register `{{ value|show('k', units) }}`, `{{ 'k'|unit_label(units) }}`, `{{ text|typed }}`
     and `{{ 'cm**2'|unit_symbol }}`."""
@@ -46,3 +55,4 @@ def install(env_filters: dict[str, object]) -> None:
     env_filters["unit_symbol"] = unit_symbol
     env_filters["typed_and_shown"] = typed_and_shown
     env_filters["at_least_decimals"] = at_least_decimals
+    env_filters["lab_time"] = lab_time

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import re
 
+import pytest
 from fastapi.testclient import TestClient
 from sqlmodel import Session
 
@@ -381,3 +382,31 @@ def test_dimensions_say_which_state_they_describe_and_trials_count_all_recorded(
     assert "2.70" in state  # Gs as it is reported, not 2.7
     averaged = text.split('data-testid="trials-averaged"')[1].split("</dd>")[0]
     assert "4 of 5 recorded" in averaged
+
+
+def test_audit_list_reads_as_actions_in_words_and_lab_time(
+    session: Session, lab: Lab, web_client: TestClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from service.config import get_settings
+
+    monkeypatch.setenv("LAB_TIMEZONE", "Asia/Kolkata")  # UTC+05:30 all year, no DST
+    get_settings.cache_clear()
+    try:
+        test = submitted_test(session, lab)
+        signed_in(session, web_client, lab.reviewer)
+        text = web_client.get(f"/tests/{test.id}/review").text
+    finally:
+        monkeypatch.delenv("LAB_TIMEZONE")
+        get_settings.cache_clear()
+    audit = text.split('data-testid="audit"')[1].split("</section>")[0]
+    # Labels, not column names; rounded values with units.
+    assert "Result, k at the reference temperature" in audit
+    assert "result k ref" not in audit
+    assert re.search(r"\d\.\d\d × 10⁻[⁰¹²³⁴⁵⁶⁷⁸⁹]+ m/s", audit)
+    assert not re.search(r"\d\.\d{6,}", audit)  # no unrounded float
+    # The lab's local time, to the minute, with its zone; no microseconds.
+    assert " IST" in audit
+    assert not re.search(r"\d\d:\d\d:\d\d", audit)
+    assert not re.search(r"\.\d{6}", audit)
+    # One item per action: the fields saved together are listed under it.
+    assert audit.count('class="audit-list__changes"') >= 1
