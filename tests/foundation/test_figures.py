@@ -8,13 +8,17 @@ shown with the figures it was typed with. Conversion factors are exact definitio
 
 from __future__ import annotations
 
+from datetime import UTC, datetime
+
 import pytest
 
 from service.figures import (
     at_least_decimals,
+    local_time,
     number,
     sci_text,
     show_text,
+    stored_value,
     typed,
     typed_and_shown,
     unit_symbol,
@@ -133,3 +137,25 @@ def test_a_typed_value_is_not_repeated_in_the_same_unit(
 def test_specific_gravity_keeps_two_decimals(value: float | None, expected: str) -> None:
     # Common practice, no source: Gs is reported to two decimals at least (2.70).
     assert at_least_decimals(value) == expected
+
+
+@pytest.mark.parametrize(
+    ("text", "unit", "expected"),
+    [
+        ("5.70028840509214e-10", "m/s", "5.70 × 10⁻¹⁰ m/s"),
+        ("345.0", "kPa", "345 kPa"),
+        ("1.1.0", "", "1.1.0"),  # a version, not a number and a unit
+        ("falling_head", "", "falling_head"),
+        (None, "", "—"),
+    ],
+)
+def test_audited_values_are_rounded_with_units(text: str | None, unit: str, expected: str) -> None:
+    # Common practice, no source: three significant figures for a logged figure.
+    assert stored_value(text, unit) == expected
+
+
+def test_times_are_shown_in_the_lab_zone_to_the_minute() -> None:
+    # Asia/Kolkata is UTC+05:30 with no daylight saving (IANA tz database).
+    moment = datetime(2026, 12, 2, 13, 54, 43, 748148, tzinfo=UTC)
+    assert local_time(moment, "Asia/Kolkata") == "2026-12-02 19:24 IST"
+    assert stored_value(moment.isoformat(), zone="UTC") == "2026-12-02 13:54 UTC"
