@@ -111,7 +111,7 @@ def test_page_is_a_labelled_tablet_form(lab: Lab) -> None:
     assert text.count("data-stopwatch-toggle") == 1
     assert 'data-stopwatch-for="f-trial-duration"' in text
     # The permeameter assigned shows its geometry from the register.
-    assert "0.282743 cm**2" in text
+    assert "0.282743 cm²" in text
     # A fresh idempotency key with every render of the trial form.
     assert trial_key(text) != trial_key(lab.client.get(lab.url()).text)
 
