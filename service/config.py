@@ -7,8 +7,9 @@ from contextvars import ContextVar
 from functools import lru_cache
 from pathlib import Path
 from typing import Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import Field, model_validator
+from pydantic import Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 PLACEHOLDER_SECRETS = frozenset({"", "changeme", "change-me", "secret", "dev", "development"})
@@ -25,6 +26,9 @@ class Settings(BaseSettings):
     secret_key: str = ""
     host: str = "127.0.0.1"
     port: int = Field(default=8000, ge=1, le=65535)
+    # The laboratory's time zone (IANA name, e.g. Europe/Berlin): times on pages are shown in
+    # it; stored times stay UTC.
+    lab_timezone: str = "UTC"
     # The address clients reach the service at, printed on certificates and in their QR
     # codes. Empty (development, test): the address each request was served at; production
     # refuses to start without it.
@@ -52,6 +56,18 @@ class Settings(BaseSettings):
     # BENCH_ANCHORS=1 serves the bare speed anchors of scripts/bench_load.py
     # (service/api/bench_anchors.py); off by default, and never served in production.
     bench_anchors: bool = False
+
+    @field_validator("lab_timezone")
+    @classmethod
+    def _known_timezone(cls, value: str) -> str:
+        try:
+            ZoneInfo(value)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ValueError(
+                f"LAB_TIMEZONE {value!r} is not a known time zone; use an IANA name such as "
+                "'UTC' or 'Europe/Berlin'"
+            ) from None
+        return value
 
     @model_validator(mode="after")
     def _secret_key_is_real(self) -> Settings:

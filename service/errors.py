@@ -304,6 +304,17 @@ _REASONS = {
 }
 
 
+_CHOICE_KINDS = frozenset({"literal_error", "enum"})
+_QUOTED = re.compile(r"'([^']*)'")
+
+
+def choice_words(expected: str) -> str:
+    """pydantic's list of choices as plain words: "'tube', 'block' or 'bulk'" ->
+    "tube, block, bulk"."""
+    found = _QUOTED.findall(expected)
+    return ", ".join(found) if found else expected
+
+
 def problems_from_validation(
     errors: Iterable[Mapping[str, Any]],
     label: Callable[[Loc], str] = field_label,
@@ -338,7 +349,12 @@ def problems_from_validation(
             if not accepted and "expected" in ctx:
                 accepted = f"one of {ctx['expected']}"
         reason = _REASONS.get(kind, reason[:1].lower() + reason[1:])
-        accepted = accepted or accepted_of(loc)
+        if kind in _CHOICE_KINDS and isinstance(ctx, Mapping) and "expected" in ctx:
+            # pydantic says "Input should be 'tube', 'block' or 'bulk'": plain words instead.
+            reason = "choose one of: " + choice_words(str(ctx["expected"]))
+            accepted = ""  # the reason says it; not twice
+        elif not accepted:
+            accepted = accepted_of(loc)
         value = error.get("input") if kind != "missing" else None
         out.append(FieldProblem(loc, reason, value, accepted, kind, label(loc)))
     return out

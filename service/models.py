@@ -1,7 +1,7 @@
 """Every table, imported in one place so the metadata (and Alembic) sees them all."""
 
 from service.accounts.models import AccessToken, Organisation, User
-from service.apparatus.models import Apparatus
+from service.apparatus.models import Apparatus, EntryUnit
 from service.audit.models import AuditEvent, ChainHead, Checkpoint
 from service.certificates.models import Certificate, CertificateTest, PublishedKey
 from service.custody.models import CustodyEvent
@@ -35,6 +35,7 @@ __all__ = [
     "CompactionCurvePoint",
     "CompactionSeries",
     "CustodyEvent",
+    "EntryUnit",
     "IdempotencyRecord",
     "LabSettings",
     "Location",

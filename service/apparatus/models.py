@@ -58,3 +58,15 @@ class Apparatus(SQLModel, table=True):
 @sa.event.listens_for(Apparatus, "before_update")
 def _keep_identifier_key(_mapper: object, _connection: object, item: Apparatus) -> None:
     item.identifier_key = identifier_key(item.identifier)
+
+
+class EntryUnit(SQLModel, table=True):
+    """The unit last picked for one entry on a test with this permeameter ('trials.head_final'
+    -> 'mm'): the page's unit picker starts there next time. A preference, not a record, so it
+    is not audited."""
+
+    __tablename__ = "entry_unit"
+
+    apparatus_id: int = Field(foreign_key="apparatus.id", primary_key=True)
+    entry: str = Field(max_length=60, primary_key=True)
+    unit: str = Field(max_length=20)

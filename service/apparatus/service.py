@@ -13,7 +13,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validat
 from sqlmodel import Session, col, func, select
 
 from service.accounts.models import User
-from service.apparatus.models import Apparatus
+from service.apparatus.models import Apparatus, EntryUnit
 from service.audit.service import apply_changes, record_change, record_created
 from service.common import ApparatusKind, Role
 from service.db import utcnow
@@ -350,7 +350,36 @@ def delete_apparatus(session: Session, apparatus_id: int, *, actor: User) -> Non
         new=None,
         actor_id=actor.id,
     )
+    for kept in session.exec(select(EntryUnit).where(EntryUnit.apparatus_id == apparatus_id)):
+        session.delete(kept)
     session.delete(item)
+    session.flush()
+
+
+# --- the units a permeameter's pages start with ----------------------------------------------
+
+
+def remembered_units(session: Session, apparatus_id: int | None) -> dict[str, str]:
+    """Entry path -> the unit last picked on a test with this permeameter (none: empty)."""
+    if apparatus_id is None:
+        return {}
+    rows = session.exec(select(EntryUnit).where(EntryUnit.apparatus_id == apparatus_id))
+    return {row.entry: row.unit for row in rows}
+
+
+def remember_units(session: Session, apparatus_id: int | None, used: dict[str, str]) -> None:
+    """Keep the units just picked (entry path -> unit) for the next test with the permeameter."""
+    if apparatus_id is None or not used:
+        return
+    kept = remembered_units(session, apparatus_id)
+    for entry, unit in used.items():
+        if kept.get(entry) == unit:
+            continue
+        row = session.get(EntryUnit, (apparatus_id, entry))
+        if row is None:
+            session.add(EntryUnit(apparatus_id=apparatus_id, entry=entry, unit=unit))
+        else:
+            row.unit = unit
     session.flush()
 
 

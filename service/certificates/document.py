@@ -18,6 +18,7 @@ from service.apparatus.models import Apparatus
 from service.certificates.series import SeriesSection, build_series_sections
 from service.common import CertificateKind, Preparation
 from service.config import public_base_url
+from service.figures import at_least_decimals, sci_text, typed
 from service.lab_tests.models import (
     PermeabilityTest,
     SaturationStep,
@@ -194,8 +195,9 @@ class CertificateDocument:
 
 
 def format_k(value: float | None) -> str:
-    """Hydraulic conductivity as the certificate prints it: three significant figures."""
-    return "-" if value is None else f"{value:.2E}"
+    """Hydraulic conductivity as the certificate prints it: three significant figures, a
+    power of ten (5.70 × 10⁻¹⁰), the one formatter of pages and certificates."""
+    return "-" if value is None else sci_text(value)
 
 
 def _quantity_text(raw: Any) -> str:
@@ -237,16 +239,17 @@ def _specimen_rows(
         for entry in catalogue.entries(Scope.SPECIMEN):
             text = getattr(specimen, f"{entry.id}_text", "")
             if text:
-                measured.append((entry.label, text))
+                measured.append((entry.label, typed(text)))
         if specimen.specific_gravity is not None:
             gravity = catalogue.entry(Scope.SPECIMEN, "specific_gravity")
-            measured.append((f"{gravity.label} {gravity.symbol}", f"{specimen.specific_gravity:g}"))
+            gravity_text = at_least_decimals(specimen.specific_gravity)
+            measured.append((f"{gravity.label} {gravity.symbol}", gravity_text))
     derived = result.get("specimen", {}) or {}
     state: list[tuple[str, str]] = []
     for label, key, pattern, scale, unit in (
-        ("Area", "area_m2", ".2f", 1e4, "cm2"),
-        ("Bulk density", "bulk_density_kg_per_m3", ".0f", 1.0, "kg/m3"),
-        ("Dry density", "dry_density_kg_per_m3", ".0f", 1.0, "kg/m3"),
+        ("Area", "area_m2", ".2f", 1e4, "cm²"),
+        ("Bulk density", "bulk_density_kg_per_m3", ".0f", 1.0, "kg/m³"),
+        ("Dry density", "dry_density_kg_per_m3", ".0f", 1.0, "kg/m³"),
         ("Void ratio", "void_ratio", ".3f", 1.0, ""),
         ("Porosity", "porosity", ".3f", 1.0, ""),
         ("Degree of saturation", "degree_of_saturation", ".1f", 100.0, "%"),
@@ -265,10 +268,11 @@ def _conditions(
     for name in ("cell_pressure", "back_pressure", "effective_confining"):
         text = getattr(test, f"{name}_text")
         if text:
-            rows.append((catalogue.entry(Scope.TEST, name).label, text))
+            rows.append((catalogue.entry(Scope.TEST, name).label, typed(text)))
     if saturation:
         last = max(saturation, key=lambda step: step.seq)
-        rows.append(("B-value (final step)", f"{last.b_value:.2f} at {last.back_pressure_text}"))
+        pressure = typed(last.back_pressure_text)
+        rows.append(("B-value (final step)", f"{last.b_value:.2f} at {pressure}"))
     return rows
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from datetime import datetime
+from pathlib import Path
 
 import segno
 from fpdf import FPDF, FontFace
@@ -19,6 +20,7 @@ from service.certificates.document import (
 )
 from service.certificates.series import render_series
 from service.common import CertificateKind
+from service.figures import power_of_ten
 from service.scope.service import OUTSIDE as OUTSIDE_SCOPE
 from service.scope.service import UNCONFIRMED
 
@@ -41,41 +43,14 @@ COMPLIANCE_COLOURS = {
     "does_not_comply": (170, 30, 30),
     "no_limit": MUTED,
 }
-# The core PDF fonts cover Latin-1 only; these stand in for the rest.
-_REPLACEMENTS = {
-    "≤": "<=",
-    "≥": ">=",
-    "–": "-",
-    "—": "-",
-    "−": "-",
-    "‘": "'",
-    "’": "'",
-    "“": '"',
-    "”": '"',
-    "→": "->",
-    "√": "sqrt",
-    "Δ": "d",
-    "η": "eta",
-    "ν": "nu",
-    "∞": "infinity",
-    "ρ": "rho",
-    "γ": "gamma",
-    "₀": "0",
-    "₁": "1",
-    "₂": "2",
-    "ₛ": "s",
-    "²": "2",
-    "³": "3",
-    "…": "...",
-    "₄": "4",
+# DejaVu Sans Condensed (Bitstream Vera licence, fonts/LICENSE-DejaVu.txt), embedded as a subset: it
+# draws ×, superscripts, ≤, ±, Greek symbols and client names in non-Latin scripts, which the
+# PDF core fonts cannot.
+FONT = "DejaVu"
+FONT_FILES = {
+    "": Path(__file__).with_name("fonts") / "DejaVuSansCondensed.ttf",
+    "B": Path(__file__).with_name("fonts") / "DejaVuSansCondensed-Bold.ttf",
 }
-
-
-def latin1(text: str) -> str:
-    """Text the core fonts can draw: known symbols spelled out, anything else as '?'."""
-    for char, spelled in _REPLACEMENTS.items():
-        text = text.replace(char, spelled)
-    return text.encode("latin-1", errors="replace").decode("latin-1")
 
 
 def _date(value: datetime) -> str:
@@ -86,34 +61,36 @@ class CertificatePDF(FPDF):
     def __init__(self, document: CertificateDocument) -> None:
         super().__init__(orientation="portrait", unit="mm", format="A4")
         self.document = document
+        for style, path in FONT_FILES.items():
+            self.add_font(FONT, style, str(path))
         self.set_margins(15, 24, 15)
         self.set_auto_page_break(auto=True, margin=20)
-        self.set_title(latin1(f"{document.title} {document.number} rev {document.revision}"))
-        self.set_author(latin1(document.lab.name))
+        self.set_title(f"{document.title} {document.number} rev {document.revision}")
+        self.set_author(document.lab.name)
         self.set_creator("Seepline")
-        self.set_subject(latin1(f"{document.project_number} {document.project_name}"))
+        self.set_subject(f"{document.project_number} {document.project_name}")
 
     def header(self) -> None:
         doc = self.document
         if doc.draft:
             self._watermark()
         self.set_y(10)
-        self.set_font("Helvetica", "B", 10)
+        self.set_font(FONT, "B", 10)
         self.set_text_color(*ACCENT)
-        self.cell(110, 5, latin1(doc.lab.name))
-        self.set_font("Helvetica", "", 9)
+        self.cell(110, 5, (doc.lab.name))
+        self.set_font(FONT, "", 9)
         self.set_text_color(*INK)
         self.cell(
             0,
             5,
-            latin1(DRAFT_MARK if doc.draft else f"Certificate {doc.number}  rev {doc.revision}"),
+            (DRAFT_MARK if doc.draft else f"Certificate {doc.number}  rev {doc.revision}"),
             align="R",
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
         )
-        self.set_font("Helvetica", "", 7.5)
+        self.set_font(FONT, "", 7.5)
         self.set_text_color(*MUTED)
-        self.cell(110, 4, latin1(doc.lab.address.replace("\n", ", ")))
+        self.cell(110, 4, (doc.lab.address.replace("\n", ", ")))
         when = "Not issued" if doc.draft else f"Issued {_date(doc.issued_at)}"
         self.cell(0, 4, when, align="R")
         self.set_draw_color(*RULE)
@@ -126,22 +103,22 @@ class CertificatePDF(FPDF):
         self.set_y(-14)
         self.set_draw_color(*RULE)
         self.line(15, self.get_y() - 1, 195, self.get_y() - 1)
-        self.set_font("Helvetica", "", 7.5)
+        self.set_font(FONT, "", 7.5)
         self.set_text_color(*MUTED)
         line = (
             f"{DRAFT_MARK}: not signed, not numbered, not stored as issued"
             if doc.draft
             else f"Verification code {doc.verification_code}  -  {doc.verify_url}"
         )
-        self.cell(140, 4, latin1(line))
+        self.cell(140, 4, (line))
         self.cell(0, 4, f"Page {self.page_no()} of {{nb}}", align="R")
 
     def _watermark(self) -> None:
         """The draft mark across the middle of the page, in light grey under the content."""
-        self.set_font("Helvetica", "B", 54)
+        self.set_font(FONT, "B", 54)
         self.set_text_color(*WATERMARK)
         with self.rotation(40, x=105, y=150):
-            self.text(105 - self.get_string_width(latin1(DRAFT_MARK)) / 2, 150, latin1(DRAFT_MARK))
+            self.text(105 - self.get_string_width(DRAFT_MARK) / 2, 150, (DRAFT_MARK))
         self.set_text_color(*INK)
 
     # Building blocks ------------------------------------------------------------------
@@ -149,9 +126,9 @@ class CertificatePDF(FPDF):
     def heading(self, text: str, size: float = 11) -> None:
         self.ensure_space(14)
         self.ln(2)
-        self.set_font("Helvetica", "B", size)
+        self.set_font(FONT, "B", size)
         self.set_text_color(*ACCENT)
-        self.cell(0, 6, latin1(text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        self.cell(0, 6, (text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         self.set_text_color(*INK)
         self.ln(0.5)
 
@@ -160,8 +137,8 @@ class CertificatePDF(FPDF):
             self.add_page()
 
     def paragraph(self, text: str, size: float = 8.5, style: str = "") -> None:
-        self.set_font("Helvetica", style, size)
-        self.multi_cell(0, size * 0.48, latin1(text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        self.set_font(FONT, style, size)
+        self.multi_cell(0, size * 0.48, (text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
 
     def key_values(
         self, rows: Sequence[tuple[str, str]], *, key_width: float = 42, width: float = 180
@@ -170,13 +147,13 @@ class CertificatePDF(FPDF):
         for key, value in rows:
             self.ensure_space(5)
             self.set_x(x0)
-            self.set_font("Helvetica", "", 8)
+            self.set_font(FONT, "", 8)
             self.set_text_color(*MUTED)
-            self.cell(key_width, 4.4, latin1(key))
+            self.cell(key_width, 4.4, (key))
             self.set_text_color(*INK)
-            self.set_font("Helvetica", "", 8.5)
+            self.set_font(FONT, "", 8.5)
             self.multi_cell(
-                width - key_width, 4.4, latin1(value or "-"), new_x=XPos.LMARGIN, new_y=YPos.NEXT
+                width - key_width, 4.4, (value or "-"), new_x=XPos.LMARGIN, new_y=YPos.NEXT
             )
 
     def table_rows(
@@ -189,7 +166,7 @@ class CertificatePDF(FPDF):
         font_size: float = 7.8,
         colours: Sequence[Sequence[tuple[int, int, int] | None]] | None = None,
     ) -> None:
-        self.set_font("Helvetica", "", font_size)
+        self.set_font(FONT, "", font_size)
         self.set_draw_color(*RULE)
         self.set_fill_color(255, 255, 255)
         heading_style = FontFace(emphasis="BOLD", color=INK, fill_color=SHADE)
@@ -204,13 +181,13 @@ class CertificatePDF(FPDF):
             borders_layout="HORIZONTAL_LINES",
             cell_fill_mode="NONE",
         ) as table:
-            table.row([latin1(h) for h in headings])
+            table.row(list(headings))
             for r, row in enumerate(rows):
                 line = table.row()
                 for c, text in enumerate(row):
                     colour = colours[r][c] if colours else None
                     style = FontFace(color=colour, emphasis="BOLD") if colour else None
-                    line.cell(latin1(text), style=style)
+                    line.cell(text, style=style)
         self.ln(1.5)
 
     def qr_code(self, url: str, x: float, y: float, size: float) -> None:
@@ -285,18 +262,18 @@ class CertificatePDF(FPDF):
 
         self.set_draw_color(*RULE)
         self.set_line_width(0.15)
-        self.set_font("Helvetica", "", 6.5)
+        self.set_font(FONT, "", 6.5)
         self.set_text_color(*MUTED)
         for exponent in range(lo, hi + 1):
             frac = log_pos(10.0**exponent)
             if log_axis == "y":
                 _, py = to_page(0, frac)
                 self.line(left, py, left + plot_w, py)
-                self.text(left - 11, py + 1, f"1E{exponent:+03d}")
+                self.text(left - 11, py + 1, power_of_ten("1", exponent).replace("1 × ", ""))
             else:
                 px, _ = to_page(frac, 0)
                 self.line(px, bottom - plot_h, px, bottom)
-                self.text(px - 5, bottom + 3.5, f"1E{exponent:+03d}")
+                self.text(px - 5, bottom + 3.5, power_of_ten("1", exponent).replace("1 × ", ""))
         ticks = _nice_ticks(lin_lo, lin_hi)
         for tick in ticks:
             frac = lin_pos(tick)
@@ -336,14 +313,14 @@ class CertificatePDF(FPDF):
                 self.set_draw_color(*MUTED)
                 self.circle(cx, cy, 0.9, style="D")
         self.set_text_color(*INK)
-        self.set_font("Helvetica", "", 7)
-        self.text(left + plot_w / 2 - len(x_label) * 0.6, bottom + 7.5, latin1(x_label))
-        self.text(x, y - 0.5, latin1(y_label))
-        self.set_font("Helvetica", "", 6.5)
+        self.set_font(FONT, "", 7)
+        self.text(left + plot_w / 2 - len(x_label) * 0.6, bottom + 7.5, (x_label))
+        self.text(x, y - 0.5, (y_label))
+        self.set_font(FONT, "", 6.5)
         self.set_text_color(*MUTED)
         if limit:
             legend += "; dashed red: specification limit"
-        self.text(left, bottom + 10.5, latin1(legend))
+        self.text(left, bottom + 10.5, (legend))
         self.set_text_color(*INK)
         self.set_line_width(0.2)
 
@@ -371,9 +348,9 @@ def _nice_ticks(lo: float, hi: float) -> list[float]:
 
 def _title_block(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     top = pdf.get_y()
-    pdf.set_font("Helvetica", "B", 15)
+    pdf.set_font(FONT, "B", 15)
     pdf.set_text_color(*INK)
-    pdf.multi_cell(140, 7, latin1(doc.title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.multi_cell(140, 7, (doc.title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.ln(1)
     by = f"{doc.issued_by.name} ({doc.issued_by.role.replace('_', ' ')})"
     if doc.draft:
@@ -403,18 +380,18 @@ def _title_block(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     )
     qr_size = 30.0
     pdf.qr_code(doc.verify_url, 195 - qr_size, top, qr_size)
-    pdf.set_font("Helvetica", "", 6.5)
+    pdf.set_font(FONT, "", 6.5)
     pdf.set_text_color(*MUTED)
     pdf.text(195 - qr_size + 1, top + qr_size + 3, "Scan to check this certificate")
     pdf.set_text_color(*INK)
     pdf.set_y(max(pdf.get_y(), top + qr_size + 5))
     if doc.supersedes:
         pdf.set_fill_color(*SHADE)
-        pdf.set_font("Helvetica", "B", 8.5)
+        pdf.set_font(FONT, "B", 8.5)
         text = f"This revision replaces certificate {doc.supersedes}."
         if doc.supersede_reason:
             text += f" Reason: {doc.supersede_reason}"
-        pdf.multi_cell(0, 4.6, latin1(text), fill=True, new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        pdf.multi_cell(0, 4.6, (text), fill=True, new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.ln(1)
 
 
@@ -430,7 +407,7 @@ def _parties(pdf: CertificatePDF, doc: CertificateDocument) -> None:
             ("Client", ", ".join(p for p in (doc.client.name, doc.client.address) if p)),
             ("Project", f"{doc.project_number}  {doc.project_name}"),
             ("Site", doc.site),
-            ("Specification limit", f"k20 <= {spec}" if doc.spec_text else spec),
+            ("Specification limit", f"k20 ≤ {spec}" if doc.spec_text else spec),
         ]
     )
 
@@ -460,9 +437,9 @@ def _side_by_side(
     height = 5 + 4.4 * max(len(left), len(right), 1)
     pdf.ensure_space(height)
     top = pdf.get_y()
-    pdf.set_font("Helvetica", "B", 8.5)
-    pdf.cell(88, 5, latin1(left_title))
-    pdf.cell(0, 5, latin1(right_title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.set_font(FONT, "B", 8.5)
+    pdf.cell(88, 5, (left_title))
+    pdf.cell(0, 5, (right_title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     start = pdf.get_y()
     pdf.key_values(left or [("-", "")], key_width=42, width=88)
     end_left = pdf.get_y()
@@ -499,18 +476,16 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
         rows.append(("Correction", test.correction_reason))
     pdf.key_values(rows)
     pdf.ln(1)
-    _side_by_side(
-        pdf, "Specimen as measured", test.measured, "Specimen state (derived)", test.state
-    )
+    _side_by_side(pdf, "Specimen as prepared", test.measured, "At permeation (derived)", test.state)
     if test.conditions:
         pdf.ln(1)
-        pdf.set_font("Helvetica", "B", 8.5)
+        pdf.set_font(FONT, "B", 8.5)
         pdf.cell(0, 5, "Test conditions", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.key_values(test.conditions)
     _stages_block(pdf, test)
     pdf.ln(1)
     pdf.ensure_space(20)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Trials", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     trial_rows = []
     for trial in test.trials:
@@ -541,24 +516,24 @@ def _stages_block(pdf: CertificatePDF, test: TestSection) -> None:
         return
     pdf.ln(1)
     pdf.ensure_space(20)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Stages of the flexible-wall test", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     for title, lines in test.stages:
         pdf.ensure_space(10)
-        pdf.set_font("Helvetica", "I", 8.5)
-        pdf.cell(0, 4.6, latin1(title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+        pdf.set_font(FONT, "I", 8.5)
+        pdf.cell(0, 4.6, (title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.key_values(lines)
 
 
 def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.ensure_space(62)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Result", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     top = pdf.get_y()
     u_text = "not evaluated (no input uncertainties recorded)"
     if test.expanded_u_m_per_s is not None and test.expanded_u_rel is not None:
         u_text = (
-            f"+/- {format_k(test.expanded_u_m_per_s)} m/s "
+            f"± {format_k(test.expanded_u_m_per_s)} m/s "
             f"({test.expanded_u_rel * 100:.1f} %, about 95 %; coverage factor {test.coverage}, "
             "ν_eff the effective degrees of freedom, Welch-Satterthwaite)"
         )
@@ -566,28 +541,26 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.set_fill_color(*SHADE)
     pdf.rect(15, top, 92, 32, style="F")
     pdf.set_xy(17, top + 1.5)
-    pdf.set_font("Helvetica", "", 8)
+    pdf.set_font(FONT, "", 8)
     pdf.set_text_color(*MUTED)
     pdf.cell(0, 4, f"Hydraulic conductivity at {reference} °C, k{reference}")
     pdf.set_xy(17, top + 6)
-    pdf.set_font("Helvetica", "B", 14)
+    pdf.set_font(FONT, "B", 14)
     pdf.set_text_color(*INK)
     pdf.cell(0, 7, f"{format_k(test.k_ref_m_per_s)} m/s")
     pdf.set_xy(17, top + 13.5)
-    pdf.set_font("Helvetica", "", 7.5)
-    pdf.multi_cell(88, 3.6, latin1(f"Expanded uncertainty U: {u_text}"))
+    pdf.set_font(FONT, "", 7.5)
+    pdf.multi_cell(88, 3.6, f"Expanded uncertainty U: {u_text}")
     pdf.set_x(17)
-    alternates = f"= {test.k_ref_cm_per_s:.2E} cm/s" if test.k_ref_cm_per_s else ""
+    alternates = f"= {format_k(test.k_ref_cm_per_s)} cm/s" if test.k_ref_cm_per_s else ""
     if test.k_ref_ft_per_day:
-        alternates += f" = {test.k_ref_ft_per_day:.2E} ft/day"
-    pdf.multi_cell(88, 3.6, latin1(alternates))
+        alternates += f" = {format_k(test.k_ref_ft_per_day)} ft/day"
+    pdf.multi_cell(88, 3.6, alternates)
     pdf.set_x(17)
     pdf.multi_cell(
         88,
         3.6,
-        latin1(
-            f"k at test temperature (mean of determinations used): {format_k(test.k_m_per_s)} m/s"
-        ),
+        (f"k at test temperature (mean of determinations used): {format_k(test.k_m_per_s)} m/s"),
     )
     plot_points = [(float(t.seq), t.k_ref_m_per_s, t.used) for t in test.trials if t.k_ref_m_per_s]
     if plot_points:
@@ -603,22 +576,22 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
             limit=test.spec_limit_m_per_s,
         )
     pdf.set_y(top + 34)
-    pdf.set_font("Helvetica", "B", 9)
+    pdf.set_font(FONT, "B", 9)
     pdf.set_text_color(*COMPLIANCE_COLOURS.get(test.compliance, INK))
-    pdf.multi_cell(92, 4.4, latin1(test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
+    pdf.multi_cell(92, 4.4, (test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.set_text_color(*INK)
     if test.compliance != "no_limit":
-        pdf.set_font("Helvetica", "", 7)
+        pdf.set_font(FONT, "", 7)
         pdf.multi_cell(
             92,
             3.4,
-            latin1(f"Decision rule: {test.decision_rule}."),
+            (f"Decision rule: {test.decision_rule}."),
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
         )
     pdf.set_y(max(pdf.get_y(), top + 52))
     pdf.ln(1)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Checks of the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     rows = []
     colours = []
@@ -631,7 +604,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     )
     if any(check.confirmed is False for check in test.checks):
         pdf.paragraph(f"[1] {UNCONFIRMED}.", size=7)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Deviations from the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     if test.deviations:
         for deviation in test.deviations:
@@ -639,7 +612,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     else:
         pdf.paragraph("None: every evaluated check of the standard passed.", size=8)
     pdf.ln(1)
-    pdf.set_font("Helvetica", "B", 8.5)
+    pdf.set_font(FONT, "B", 8.5)
     pdf.cell(0, 5, "Sign-offs", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.table_rows(
         ["", "Name", "Role", "Date"],
@@ -655,12 +628,12 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
         or [["-", "no sign-offs recorded", "", ""]],
         [28, 70, 36, 46],
     )
-    pdf.set_font("Helvetica", "", 6.5)
+    pdf.set_font(FONT, "", 6.5)
     pdf.set_text_color(*MUTED)
     pdf.multi_cell(
         0,
         3,
-        latin1(
+        (
             f"Reduced by Seepline engine {test.engine_version}; "
             f"input hash {test.input_hash or '-'}; test record {test.test_id}."
         ),
@@ -736,7 +709,7 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
     decision_rules = sorted({t.decision_rule for t in doc.tests if t.compliance != "no_limit"})
     notes += [f"Decision rule: {rule}." for rule in decision_rules]
     for note in notes:
-        pdf.paragraph(latin1(note), size=7)
+        pdf.paragraph((note), size=7)
     if points:
         pdf.ensure_space(70)
         top = pdf.get_y() + 2

@@ -78,6 +78,27 @@ class UnitPair:
         return self.us if system == "us" else self.si
 
 
+# The units a form's picker offers for each kind of quantity, as pint reads them (common
+# practice, no source: the units a soil laboratory reads its instruments in). A stored value
+# in any other unit is still accepted and shown; the picker then offers that unit too.
+UNIT_CHOICES: dict[str, tuple[str, ...]] = {
+    units.LENGTH.name: ("cm", "mm", "m", "in", "ft"),
+    units.AREA.name: ("cm**2", "mm**2", "m**2", "in**2", "ft**2"),
+    units.VOLUME.name: ("mL", "L", "cm**3", "in**3"),
+    units.MASS.name: ("g", "kg", "lb"),
+    units.DURATION.name: ("s", "min", "h"),
+    units.TIME.name: ("s", "min", "h"),
+    units.TEMPERATURE.name: ("degC", "degF"),
+    units.PRESSURE.name: ("kPa", "psi", "bar", "MPa"),
+    units.FLOW_RATE.name: ("mL/min", "mL/s", "mL/h", "m**3/s"),
+    units.DENSITY.name: ("g/cm**3", "kg/m**3", "lb/ft**3"),
+    units.CONDUCTIVITY.name: ("m/s", "cm/s", "ft/day"),
+    units.FRACTION.name: ("%",),
+    units.VISCOSITY.name: ("mPa*s", "Pa*s", "cP"),
+    units.UNIT_WEIGHT.name: ("kN/m**3", "lbf/ft**3"),
+}
+
+
 @dataclass(frozen=True, slots=True)
 class Entry:
     """One typed value of a test.
@@ -166,6 +187,17 @@ class Entry:
         if rest and (rest.isupper() or rest.isdigit()):
             return self.label
         return "the " + head.lower() + self.label[1:]
+
+    @property
+    def unit_choices(self) -> tuple[str, ...]:
+        """The units a form's picker offers (none for a plain number)."""
+        return UNIT_CHOICES.get(self.kind.name, ()) if self.is_quantity else ()
+
+    def unit_for(self, system: str | None) -> str:
+        """Return the unit a form starts with for ``system`` (a fraction: '%'; a number: none)."""
+        if self.units is not None:
+            return self.units.for_system(system)
+        return self.unit_choices[0] if self.unit_choices else ""
 
     def example_for(self, system: str | None) -> str:
         """Return the example in the user's unit system."""
@@ -418,7 +450,7 @@ TRIAL: tuple[Entry, ...] = (
        si_field="flow_rate_m3_per_s", unit=("mL/min", "mL/min"), symbol="q"),
     _q("temperature", units.TEMPERATURE, TR, "Temperature", "21.5 degC", "70.7 degF",
        si_field="temperature_c", unit=("degC", "degF"), symbol="T", positive=False,
-       resolution="0.1 K", hint="or 70 degF",
+       resolution="0.1 K",
        help="Permeant temperature; without it k is not corrected."),
 )
 # fmt: on
@@ -844,6 +876,7 @@ __all__ = [
     "METHODS",
     "SPECIMEN_NEEDS",
     "STANDARDS",
+    "UNIT_CHOICES",
     "Entry",
     "Method",
     "Need",

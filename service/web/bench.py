@@ -21,6 +21,7 @@ from service.web.entries import (
     STANDARD_CHOICES,
     FormEntry,
     apparatus_form,
+    posted,
     section_form,
     trial_form,
 )
@@ -119,7 +120,7 @@ def payload_of(bench: BenchForm) -> tuple[dict[str, Any], list[int]]:
     def section(prefix: str, entries: tuple[FormEntry, ...]) -> dict[str, str]:
         out = {}
         for entry in entries:
-            text = bench.value(f"{prefix}.{entry.key}").strip()
+            text = posted(bench.values, f"{prefix}.{entry.key}")
             if text:
                 out[entry.key] = text
         return out

@@ -1,77 +1,58 @@
-"""Figures shown in the user's chosen display units (SI or US customary), always with the unit.
-
-Stored values stay SI; only the display changes. Factors are exact definitions: 1 ft =
-0.3048 m, 1 lb = 0.45359237 kg (international yard and pound, 1959), 1 day = 86 400 s."""
+"""Figures on pages: the filters templates use, over the one formatter (service/figures.py)."""
 
 from __future__ import annotations
 
-import math
+from datetime import datetime
 
 from markupsafe import Markup
 
-_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+from service.config import get_settings
+from service.figures import (
+    at_least_decimals,
+    local_time,
+    number,
+    sci_text,
+    show_text,
+    typed,
+    typed_and_shown,
+    unit_label,
+    unit_symbol,
+)
 
-FT = 0.3048
-LB = 0.45359237
-# quantity -> {units: (label, factor from the SI value, use scientific notation)}
-_DISPLAY: dict[str, dict[str, tuple[str, float, bool]]] = {
-    "k": {"si": ("m/s", 1.0, True), "us": ("ft/day", 86_400 / FT, True)},
-    "length": {"si": ("m", 1.0, False), "us": ("ft", 1 / FT, False)},
-    "small_length": {"si": ("mm", 1e3, False), "us": ("in", 1 / 0.0254, False)},
-    "density": {"si": ("kg/m³", 1.0, False), "us": ("lb/ft³", FT**3 / LB, False)},
-    "pressure": {"si": ("kPa", 1.0, False), "us": ("psi", 1 / 6.894757293168361, False)},
-    "area": {"si": ("m²", 1.0, True), "us": ("in²", 1 / 0.0254**2, False)},
-}
+__all__ = ["install", "number", "sci", "show", "unit_label"]
 
 
 def sci(value: float | None, digits: int = 3) -> Markup | str:
-    """A figure in scientific notation with a real superscript: 1.76 × 10⁻⁹."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    if value == 0:
-        return "0"
-    exponent = math.floor(math.log10(abs(value)))
-    if -2 <= exponent <= 3:
-        return f"{value:.{digits}g}"
-    mantissa = value / 10**exponent
-    if round(mantissa, digits - 1) >= 10:
-        mantissa /= 10
-        exponent += 1
-    text = f"{mantissa:.{digits - 1}f} × 10{str(exponent).translate(_SUPERSCRIPT)}"
+    """A figure in scientific notation, kept on one line: 1.76 × 10⁻⁹."""
+    text = sci_text(value, digits)
+    if "×" not in text:
+        return text
     return Markup('<span class="sci">{}</span>').format(text)
-
-
-def number(value: float | None, digits: int = 3) -> str:
-    """A plain figure to `digits` significant digits (whole numbers below a million are
-    written out, never as 1.99e+03), or a dash when there is none."""
-    if value is None or not math.isfinite(value):
-        return "—"
-    if 10**digits <= abs(value) < 1e6:
-        return f"{value:.0f}"
-    return f"{value:.{digits}g}"
-
-
-def unit_label(quantity: str, units: str | None) -> str:
-    return _DISPLAY[quantity][_system(units)][0]
-
-
-def _system(units: str | None) -> str:
-    return "us" if units == "us" else "si"
 
 
 def show(value: float | None, quantity: str, units: str | None = "si", digits: int = 3) -> Markup:
     """`value` (SI) converted to the user's units, formatted, with the unit after it."""
-    label, factor, scientific = _DISPLAY[quantity][_system(units)]
-    if value is None:
-        return Markup("—")
-    converted = value * factor
-    text = sci(converted, digits) if scientific else number(converted, digits)
-    return Markup("{} {}").format(text, label)
+    text = show_text(value, quantity, units, digits)
+    figure, _, unit = text.rpartition(" ")
+    if "×" not in figure:
+        return Markup("{}").format(text)
+    return Markup('<span class="sci">{}</span> {}').format(figure, unit)
+
+
+def lab_time(moment: datetime | None) -> str:
+    """A stored time in the laboratory's time zone (LAB_TIMEZONE), to the minute."""
+    return local_time(moment, get_settings().lab_timezone)
 
 
 def install(env_filters: dict[str, object]) -> None:
-    """Register `{{ value|show('k', units) }}` and `{{ 'k'|unit_label(units) }}`."""
+    """Register `{{ value|show('k', units) }}`, `{{ 'k'|unit_label(units) }}`, `{{ text|typed }}`
+    and `{{ 'cm**2'|unit_symbol }}`."""
     env_filters["sci"] = sci
     env_filters["number"] = number
     env_filters["show"] = show
     env_filters["unit_label"] = unit_label
+    env_filters["typed"] = typed
+    env_filters["unit_symbol"] = unit_symbol
+    env_filters["typed_and_shown"] = typed_and_shown
+    env_filters["at_least_decimals"] = at_least_decimals
+    env_filters["lab_time"] = lab_time

@@ -24,6 +24,7 @@ from service import __version__
 from service.db import PROJECT_ROOT, session_scope
 from service.laboratory.service import accreditation_text, lab_settings
 from service.web.display import install as install_display_filters
+from service.web.entries import NUMBER_PATTERN, entry_label
 from service.web.rules_words import install as install_rules_words
 
 
@@ -91,6 +92,8 @@ def _make_templates() -> Jinja2Templates:
     env.globals["htmx_script"] = HTMX_SCRIPT
     env.globals["app_version"] = __version__
     env.globals["lab_identity"] = lab_identity
+    env.globals["number_pattern"] = NUMBER_PATTERN
+    env.globals["entry_label"] = entry_label
     env.trim_blocks = True
     env.lstrip_blocks = True
     return templates

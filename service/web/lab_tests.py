@@ -22,11 +22,17 @@ from starlette.datastructures import FormData
 from service.accounts.models import User
 from service.accounts.service import names_of
 from service.apparatus.models import Apparatus
-from service.apparatus.service import is_overdue, list_apparatus
+from service.apparatus.service import (
+    is_overdue,
+    list_apparatus,
+    remember_units,
+    remembered_units,
+)
 from service.common import ApparatusKind, Preparation, Role
 from service.db import utcnow
 from service.deps import CurrentUser, SessionDep, reads_only
 from service.errors import FieldProblem, PermissionDenied, StaleVersion
+from service.figures import at_least_decimals
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.reduction import Reduction, Scope, catalogue, reduce_stored, trial_notes
@@ -44,8 +50,11 @@ from service.web.entries import (
     FormEntry,
     form_entry,
     method_name,
+    posted,
+    section_form,
     takes_readings,
     trial_form,
+    units_used,
 )
 from service.web.htmx import PostedForm, htmx_details, redirect, render
 from service.web.pages import layout_context
@@ -73,17 +82,49 @@ PICKED_KINDS = frozenset(kind for _, _, kinds in PICKER_KINDS for kind in kinds)
 REGISTER_LIMIT = 200
 
 
-def specimen_entries(units: str | None = "si") -> tuple[FormEntry, ...]:
+Remembered = Mapping[str, str] | None
+
+
+def specimen_entries(
+    units: str | None = "si", remembered: Remembered = None
+) -> tuple[FormEntry, ...]:
     """The specimen fields typed with a unit or as a number (the stiffness is a tick box)."""
     return tuple(
-        form_entry(e, units=units)
+        form_entry(e, units=units, remembered=remembered)
         for e in catalogue.entries(Scope.SPECIMEN)
         if e.on_forms and e.is_quantity
     )
 
 
-def condition_entries(units: str | None = "si") -> tuple[FormEntry, ...]:
-    return tuple(form_entry(catalogue.entry(Scope.TEST, n), units=units) for n in PRESSURES)
+def condition_entries(
+    units: str | None = "si", remembered: Remembered = None
+) -> tuple[FormEntry, ...]:
+    return section_form(Scope.TEST, PRESSURES, units, remembered)
+
+
+def saturation_entries(
+    units: str | None = "si", remembered: Remembered = None
+) -> tuple[FormEntry, ...]:
+    return section_form(Scope.SATURATION, ("back_pressure", "b_value"), units, remembered)
+
+
+def reading_entries(
+    units: str | None = "si", remembered: Remembered = None
+) -> tuple[FormEntry, ...]:
+    return section_form(Scope.READING, ("time", "head"), units, remembered)
+
+
+def _permeameter_of(record: lab_tests.TestRecord) -> int | None:
+    """The permeameter assigned to the test: the units its pages start with are its own."""
+    kinds = PICKER_KINDS[0][2]
+    return next((a.id for a in record.apparatus if a.kind in kinds), None)
+
+
+def _remember(session: Session, test_id: int, user: User, form: Mapping[str, Any], prefix: str,
+              scope: Scope) -> None:  # fmt: skip
+    """After a save: keep the units picked for the next test on the same permeameter."""
+    record = lab_tests.load_record(session, test_id, actor=user)
+    remember_units(session, _permeameter_of(record), units_used(form, prefix, scope))
 
 
 # ---------- the live reduction: stored trials plus the one being typed ----------
@@ -156,24 +197,32 @@ def typed_trial(form: Mapping[str, Any], method: str) -> tuple[dict[str, str], d
     typed: dict[str, str] = {}
     entries: dict[str, Any] = {}
     for entry in trial_form(method):
-        text = str(form.get(f"trial.{entry.key}", ""))
-        typed[f"trial.{entry.key}"] = text
-        if text.strip():
-            entries[entry.key] = text.strip()
+        name = f"trial.{entry.key}"
+        typed.update(_as_typed(form, name))
+        if text := posted(form, name):
+            entries[entry.key] = text
     if takes_readings(method):
         readings = []
         for row in range(READING_ROWS):
             reading = {}
             for part in ("time", "head"):
-                text = str(form.get(f"trial.readings.{row}.{part}", ""))
-                typed[f"trial.readings.{row}.{part}"] = text
-                if text.strip():
-                    reading[part] = text.strip()
+                name = f"trial.readings.{row}.{part}"
+                typed.update(_as_typed(form, name))
+                if text := posted(form, name):
+                    reading[part] = text
             if reading:
                 readings.append(reading)
         if readings:
             entries["readings"] = readings
     return typed, entries
+
+
+def _as_typed(form: Mapping[str, Any], name: str) -> dict[str, str]:
+    """A number field and its unit picker as posted, to show again exactly as typed."""
+    shown = {name: str(form.get(name, ""))}
+    if name + ".unit" in form:
+        shown[name + ".unit"] = str(form.get(name + ".unit", ""))
+    return shown
 
 
 # ---------- page context ----------
@@ -221,7 +270,7 @@ def _specimen_values(record: lab_tests.TestRecord) -> dict[str, Any]:
     for entry in specimen_entries():
         values[f"specimen.{entry.key}"] = getattr(specimen, f"{entry.key}_text", "")
     if specimen.specific_gravity is not None:
-        values["specimen.specific_gravity"] = f"{specimen.specific_gravity:g}"
+        values["specimen.specific_gravity"] = at_least_decimals(specimen.specific_gravity)
     if specimen.retained_on_lower_sieve_pct is not None:
         values["specimen.retained_on_lower_sieve"] = f"{specimen.retained_on_lower_sieve_pct:g} %"
     values["specimen.stiff_material"] = specimen.stiff_material
@@ -304,6 +353,7 @@ def _context(
     register = _register(session)
     reduction = page_reduction(session, test, entries)
     units = user.display_units
+    remembered = remembered_units(session, _permeameter_of(record))
     context.update(
         forms=forms,
         values=values,
@@ -316,12 +366,14 @@ def _context(
             (a for a in register["permeameter"] if str(a.id) == values["app.permeameter"]), None
         ),
         overdue=lambda item: is_overdue(item, on=today),
-        specimen_entries=specimen_entries(units),
+        specimen_entries=specimen_entries(units, remembered),
         preparations=PREPARATIONS,
-        condition_entries=condition_entries(units),
+        condition_entries=condition_entries(units, remembered),
+        saturation_entries=saturation_entries(units, remembered),
+        reading_entries=reading_entries(units, remembered),
         show_conditions=test.standard == D5084
         or any(a.kind == ApparatusKind.FLEXIBLE_WALL_PERMEAMETER for a in record.apparatus),
-        trial_entries=trial_form(test.method, units),
+        trial_entries=trial_form(test.method, units, remembered),
         reading_rows=READING_ROWS if takes_readings(test.method) else 0,
         next_seq=(record.trials[-1].seq if record.trials else 0) + 1,
         reduction=reduction,
@@ -400,8 +452,7 @@ def test_page(request: Request, test_id: int, user: CurrentUser, session: Sessio
 
 def _specimen_fields(form: Mapping[str, Any]) -> dict[str, Any]:
     fields: dict[str, Any] = {
-        entry.key: str(form.get(f"specimen.{entry.key}", "")).strip() or None
-        for entry in specimen_entries()
+        entry.key: posted(form, f"specimen.{entry.key}") or None for entry in specimen_entries()
     }
     gravity = fields.pop("specific_gravity")
     fields["specific_gravity"] = gravity
@@ -427,6 +478,8 @@ def save_specimen(
         forms.values["specimen.version"] = str(tried.stale.current.get("version", ""))
     else:
         forms = _settle(forms, tried, "specimen", "specimen", "Specimen saved.")
+    if not tried.refused:
+        _remember(session, test_id, user, form, "specimen", Scope.SPECIMEN)
     status = tried.status
     return _section(request, session, user, test_id, "specimen", forms=forms, status_code=status)
 
@@ -508,9 +561,7 @@ def save_conditions(
 ) -> Response:
     """Cell, back and effective pressures and the permeant, each kept as typed."""
     forms = Forms(values=_form_values(form, "cond"))
-    fields: dict[str, Any] = {
-        name: str(form.get(f"cond.{name}", "")).strip() or None for name in PRESSURES
-    }
+    fields: dict[str, Any] = {name: posted(form, f"cond.{name}") or None for name in PRESSURES}
     fields["permeant"] = str(form.get("cond.permeant", ""))
     fields["version"] = _version(form)
     with attempt(session) as tried:
@@ -527,8 +578,8 @@ def add_saturation(
     """Append a back-pressure step and the B-value measured after it."""
     forms = Forms(values=_form_values(form, "sat"))
     fields = {
-        "back_pressure": str(form.get("sat.back_pressure", "")).strip(),
-        "b_value": str(form.get("sat.b_value", "")).strip() or None,
+        "back_pressure": posted(form, "sat.back_pressure"),
+        "b_value": posted(form, "sat.b_value") or None,
     }
     with attempt(session) as tried:
         data = SaturationStepCreate.model_validate(fields)
@@ -622,6 +673,8 @@ def save_trial(
     else:
         saved = f"Trial {written.trial.seq} saved." if not tried.refused else ""
         forms = _settle(forms, tried, "trials", "trial", saved)
+    if not tried.refused:
+        _remember(session, test_id, user, form, "trial", Scope.TRIAL)
     status = tried.status if tried.refused else 201
     return _section(request, session, user, test_id, "trials", forms=forms, status_code=status)
 

@@ -14,6 +14,7 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from html import escape
 
+from service.figures import DISPLAY, number, system
 from service.lab_tests.reduction import fit_log_head
 
 INK = "#1b2a2f"
@@ -485,6 +486,7 @@ def k_depth_svg(
     reference_temperature_c: float = 20.0,
     plot_id: str = "k-depth",
     title: str = "Hydraulic conductivity against depth",
+    units: str | None = "si",
 ) -> str:
     """k at the reference temperature against sample depth, one series per location.
 
@@ -492,9 +494,16 @@ def k_depth_svg(
     ----------
     series : location name -> [(depth [m] below ground level, k [m/s]), ...]
     spec_limit : the specification limit on k [m/s], drawn as a vertical line
+    units : the user's display units ("us": ft/day and ft; otherwise m/s and m)
 
     The k axis is logarithmic; depth increases downward from 0 at the top.
     """
+    k_unit, k_factor, _ = DISPLAY["k"][system(units)]
+    depth_unit, depth_factor, _ = DISPLAY["length"][system(units)]
+    series = {
+        name: [(d * depth_factor, k * k_factor) for d, k in rows] for name, rows in series.items()
+    }
+    spec_limit = spec_limit * k_factor if spec_limit else spec_limit
     points = [(d, k) for rows in series.values() for d, k in rows]
     if not points:
         raise ValueError("k_depth_svg needs at least one (depth, k) point")
@@ -514,9 +523,9 @@ def k_depth_svg(
     ref = f"{reference_temperature_c:g}".translate(_SUBSCRIPT)
     desc = (
         f"{len(points)} result(s) at {len(series)} location(s), depths 0 to "
-        f"{plain_label(max_depth)} m; k{ref} from {sci_text(min(k for _, k in points))} to "
-        f"{sci_text(max(k for _, k in points))} m/s"
-        + (f"; specification limit {sci_text(spec_limit)} m/s." if spec_limit else ".")
+        f"{number(max_depth)} {depth_unit}; k{ref} from "
+        f"{sci_text(min(k for _, k in points))} to {sci_text(max(k for _, k in points))} {k_unit}"
+        + (f"; specification limit {sci_text(spec_limit)} {k_unit}." if spec_limit else ".")
     )
     parts = [
         _open(plot_id, title, desc, height=HEIGHT + legend_height(len(series) + bool(spec_limit))),
@@ -550,7 +559,12 @@ def k_depth_svg(
     parts.extend(legend)
     parts.append(
         _axis_titles(
-            f"k{ref} (m/s), log scale", "Depth below ground level (m)", left, top, right, bottom
+            f"k{ref} ({k_unit}), log scale",
+            f"Depth below ground level ({depth_unit})",
+            left,
+            top,
+            right,
+            bottom,
         )
     )
     parts.append("</svg>")
@@ -593,20 +607,20 @@ def ln_head_trials_svg(
         _frame(left, top, right, bottom),
     ]
     legend = []
-    for index, (number, t, h1, h2) in enumerate(runs):
+    for index, (trial, t, h1, h2) in enumerate(runs):
         shape = SHAPES[index % len(SHAPES)]
         colour = SERIES_COLOURS[index % len(SERIES_COLOURS)]
         x1, y1 = x_axis.px(0.0), y_axis.px(math.log(h1))
         x2, y2 = x_axis.px(t / per), y_axis.px(math.log(h2))
         parts.append(
-            f'<g class="series" data-trial="{number}">'
+            f'<g class="series" data-trial="{trial}">'
             f'<line x1="{_f(x1)}" y1="{_f(y1)}" x2="{_f(x2)}" y2="{_f(y2)}" '
             f'stroke="{colour}" stroke-width="2"/>'
             + marker(shape, x1, y1, colour)
             + marker(shape, x2, y2, colour)
             + "</g>"
         )
-        legend.append((shape, colour, f"trial {number}", True))
+        legend.append((shape, colour, f"trial {trial}", True))
     parts.append(
         _axis_titles(
             f"Time since the trial began ({unit})", "ln h  (head h in m)", left, top, right, bottom
@@ -655,9 +669,9 @@ def k_time_svg(
     xy = [(x_axis.px(t / per), y_axis.px(k)) for _, t, k in points]
     path = " ".join(f"{_f(x)},{_f(y)}" for x, y in xy)
     parts.append(f'<polyline points="{path}" fill="none" stroke="{GRID}" stroke-width="1.5"/>')
-    for (number, _, _), (x, y) in zip(points, xy, strict=True):
+    for (trial, _, _), (x, y) in zip(points, xy, strict=True):
         parts.append(marker("circle", x, y, ACCENT))
-        parts.append(_text(x, y - 10, str(number), text_anchor="middle", class_="tick"))
+        parts.append(_text(x, y - 10, str(trial), text_anchor="middle", class_="tick"))
     parts.append(
         _axis_titles(
             f"Permeation time at the end of the trial ({unit})",

@@ -181,7 +181,9 @@ def sample_rows(session: Session, project: Project) -> list[SampleRow]:
     return rows
 
 
-def depth_plot(rows: Sequence[SampleRow], spec_limit: float | None) -> Plot | None:
+def depth_plot(
+    rows: Sequence[SampleRow], spec_limit: float | None, units: str | None = "si"
+) -> Plot | None:
     """k20 against depth, one series per location; approved results that are not yet
     certified form series of their own, so the legend tells them apart."""
     series: dict[str, list[tuple[float, float]]] = {}
@@ -202,7 +204,9 @@ def depth_plot(rows: Sequence[SampleRow], spec_limit: float | None) -> Plot | No
     if not series:
         return None
     ordered = dict(sorted(series.items()))
-    svg = k_depth_svg(ordered, spec_limit=spec_limit, title="k20 against depth, by location")
+    svg = k_depth_svg(
+        ordered, spec_limit=spec_limit, title="k20 against depth, by location", units=units
+    )
     return Plot(svg, certified, uncertified, left_out)
 
 
@@ -286,7 +290,7 @@ def project_page(
         status_filter=status,
         location_filter=location,
         filter_problems=problems,
-        plot=depth_plot(rows, project.spec_k_max_m_per_s),
+        plot=depth_plot(rows, project.spec_k_max_m_per_s, user.display_units),
         cautions=CAUTIONS[1:3],
         **_certificates(session, user, project_id),
     )

@@ -22,10 +22,12 @@ from service.certificates.service import (
     list_certificates,
 )
 from service.common import TestState
+from service.config import get_settings
 from service.deps import SessionDep
 from service.errors import PermissionDenied, ServiceError
+from service.figures import column_unit, stored_value
 from service.lab_tests import service as lab_tests
-from service.lab_tests.reduction import reduce_stored, trial_notes
+from service.lab_tests.reduction import Scope, catalogue, reduce_stored, trial_notes
 from service.lab_tests.schemas import CorrectionRequest, SendBackRequest, SignOffRequest
 from service.projects.models import Project
 from service.samples.models import Sample
@@ -200,29 +202,82 @@ def _short(value: str | None) -> str:
     return value if len(value) <= 40 else value[:39] + "…"
 
 
+# Audit fields that hold a person's id.
+PERSON_FIELDS = frozenset({"technician_id", "requested_by_id"})
+# Audit fields whose names say too little on their own.
+AUDIT_WORDS = {
+    "state": "State",
+    "result_k_ref": "Result, k at the reference temperature",
+    "spec_k_max": "Specification limit on k",
+    "technician_id": "Technician",
+    "requested_by_id": "Requested by",
+    "engine_version": "Engine version",
+    "sent_back_reason": "Reason sent back",
+    "reference_temperature": "Reference temperature",
+}
+
+
+def audit_field(column: str) -> tuple[str, str]:
+    """(label, unit) of an audited column: the method catalogue's label where it has one
+    ('cell_pressure_kpa' -> 'Cell pressure', 'kPa'), else the column in words."""
+    name, unit = column_unit(column.removesuffix("_text"))
+    if column.endswith("_text"):
+        unit = ""  # the text carries its own unit
+    if name in AUDIT_WORDS:
+        return AUDIT_WORDS[name], unit
+    for scope in (Scope.TEST, Scope.SPECIMEN, Scope.TRIAL, Scope.OPTION):
+        found = catalogue.find(scope, name)
+        if found is not None:
+            return found.label, unit
+    words = name.replace("_", " ")
+    return words[:1].upper() + words[1:], unit
+
+
+def _audit_value(column: str, text: str | None, unit: str, people: dict[int, str]) -> str:
+    """One audited value for reading: a person by name, a method by its name, a figure
+    rounded with its unit, a time in the laboratory's zone."""
+    if column in PERSON_FIELDS and text and text.isdigit():
+        return people.get(int(text), f"user {text}")
+    if column == "method" and text:
+        return catalogue.method_name(text)
+    return _short(stored_value(text, unit, get_settings().lab_timezone))
+
+
+def _change(e: Any, people: dict[int, str]) -> dict[str, Any]:
+    label, unit = audit_field(e.field)
+    opaque = e.field in OPAQUE_FIELDS
+    old = "" if opaque or e.old_value is None else _audit_value(e.field, e.old_value, unit, people)
+    return {
+        "field": label,
+        "old": old,
+        "new": "" if opaque else _audit_value(e.field, e.new_value, unit, people),
+        "opaque": opaque,
+    }
+
+
 def audit_summary(events: list[Any], people: dict[int, str]) -> dict[str, Any]:
-    """The state history, and the latest changes with short values (records left out)."""
+    """The state history, and the latest actions (the fields changed together in one audit
+    row), each field by its label with its values rounded and with units (records left
+    out)."""
     states = [
         {"when": e.occurred_at, "who": people.get(e.actor_id or 0, "system"), "to": e.new_value}
         for e in events
         if e.field == "state"
     ]
-    latest = [
-        {
-            "when": e.occurred_at,
-            "who": people.get(e.actor_id or 0, "system"),
-            "field": e.field.replace("_", " "),
-            "old": "" if e.field in OPAQUE_FIELDS else _short(e.old_value),
-            "new": "" if e.field in OPAQUE_FIELDS else _short(e.new_value),
-            "opaque": e.field in OPAQUE_FIELDS,
-        }
-        for e in events[-AUDIT_SHOWN:][::-1]
-    ]
+    actions: list[dict[str, Any]] = []
+    for e in reversed(events):
+        key = (e.chain, e.seq)
+        if not actions or actions[-1]["key"] != key:
+            if len(actions) == AUDIT_SHOWN:
+                break
+            who = people.get(e.actor_id or 0, "system")
+            actions.append({"key": key, "when": e.occurred_at, "who": who, "changes": []})
+        actions[-1]["changes"].insert(0, _change(e, people))
     return {
         "count": len(events),
         "people": sorted({people.get(e.actor_id or 0, "system") for e in events}),
         "states": states,
-        "latest": latest,
+        "latest": actions,
     }
 
 
@@ -261,6 +316,13 @@ def review_context(
         session,
         {s.user_id for s in record.sign_offs}
         | {e.actor_id or 0 for e in events}
+        | {
+            int(v)
+            for e in events
+            if e.field in PERSON_FIELDS
+            for v in (e.old_value, e.new_value)
+            if v and v.isdigit()
+        }
         | {test.technician_id or 0},
     )
     certificates, _ = list_certificates(session, user=user, sample_id=sample.id)

@@ -2,6 +2,8 @@
 // 1. Stopwatch: one tap starts timing a trial, the next tap stops it and writes the
 //    duration ("754.3 s") into that trial's duration field, which htmx then reduces.
 // 2. After htmx swaps field messages in out of band, mark the fields they describe.
+// 3. Enter ("next" on a tablet's keypad) in a number field moves on to the next number
+//    field of its form, and from the last one to the form's button, instead of submitting.
 (function () {
   "use strict";
 
@@ -42,7 +44,13 @@
     watch.querySelector("[data-stopwatch-time]").textContent = format(elapsed);
     var field = document.getElementById(watch.dataset.stopwatchFor);
     if (field) {
-      field.value = elapsed.toFixed(1) + " s";
+      var unit = document.getElementById(field.id + "-unit");
+      if (unit) {
+        unit.value = "s";
+        field.value = elapsed.toFixed(1);
+      } else {
+        field.value = elapsed.toFixed(1) + " s";
+      }
       field.dispatchEvent(new Event("input", { bubbles: true }));
     }
   }
@@ -72,4 +80,22 @@
   }
 
   document.addEventListener("htmx:after:swap", markInvalidFields);
+
+  // A field inside a closed <details> still has a box in Chromium (its content is only
+  // content-visibility: hidden), but it cannot take focus: skip it.
+  function visible(element) {
+    if (element.disabled || element.closest("details:not([open])")) return false;
+    return element.getClientRects().length > 0;
+  }
+
+  document.addEventListener("keydown", function (event) {
+    var field = event.target;
+    if (event.key !== "Enter" || !field.matches || !field.matches("[data-next-field]")) return;
+    var form = field.form;
+    if (!form) return;
+    event.preventDefault();
+    var fields = Array.prototype.filter.call(form.querySelectorAll("[data-next-field]"), visible);
+    var next = fields[fields.indexOf(field) + 1] || form.querySelector("[type=submit]");
+    if (next) next.focus();
+  });
 })();

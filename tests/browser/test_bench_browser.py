@@ -84,8 +84,8 @@ def test_bench_live_reduction_with_stopwatch(
         page.wait_for_timeout(1200)
         trial.get_by_role("button", name="Stop timing").click()
         duration = trial.get_by_label("Duration").input_value()
-        assert re.fullmatch(r"\d+\.\d s", duration), duration
-        assert float(duration.split()[0]) >= 1.0
+        assert re.fullmatch(r"\d+\.\d", duration), duration
+        assert float(duration) >= 1.0
 
         # The live result arrives without pressing anything.
         k_ref = page.get_by_test_id("k-ref")

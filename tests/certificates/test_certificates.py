@@ -38,6 +38,14 @@ def pdf_text(pdf: bytes) -> str:
     return "\n".join(page.extract_text() for page in PdfReader(io.BytesIO(pdf)).pages)
 
 
+def written(value: float) -> str:
+    """A figure as a certificate prints it: three significant figures times a power of ten
+    with a superscript exponent (typography: common practice, no source)."""
+    mantissa, exponent = f"{value:.2E}".split("E")
+    superscript = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+    return f"{mantissa} × 10{str(int(exponent)).translate(superscript)}"
+
+
 def issue(session: Session, world: World) -> Certificate:
     assert world.sample.id is not None
     certificate = issue_sample_certificate(session, world.sample.id, actor=world.manager)
@@ -59,15 +67,16 @@ def test_pdf_text_shows_the_stored_numbers(session: Session, world: World) -> No
     result = world.test.result
     assert result is not None
     summary = result["result"]
-    assert f"{summary['k_ref_m_per_s']:.2E} m/s" in text
+    assert f"{written(summary['k_ref_m_per_s'])} m/s" in text
     for output in result["trials"]:
-        assert f"{output['k_ref_m_per_s']:.2E}" in text
+        assert written(output["k_ref_m_per_s"]) in text
     u = summary["expanded_u_rel"] * summary["k_ref_m_per_s"]
-    assert f"+/- {u:.2E} m/s" in text
-    assert f"{result['specimen']['dry_density_kg_per_m3']:.0f} kg/m3" in text
+    assert f"± {written(u)} m/s" in text
+    assert f"{result['specimen']['dry_density_kg_per_m3']:.0f} kg/m³" in text
+    assert "E-" not in text  # never programmers' notation
     assert f"{result['specimen']['void_ratio']:.3f}" in text
     assert f"{result['specimen']['degree_of_saturation'] * 100:.1f} %" in text
-    for typed in ("71.10 mm", "73.20 mm", "560.0 g", "22.4 %", "550 kPa", "h1 125.0 cm"):
+    for typed in ("71.10 mm", "73.20 mm", "560.0 g", "22.4 %", "550 kPa", "h₁ 125.0 cm"):
         assert typed in text
     assert "26-0107" in text
     assert "BH-07/U3" in text
@@ -82,6 +91,30 @@ def test_pdf_text_shows_the_stored_numbers(session: Session, world: World) -> No
     assert "field can differ" in text
     for name in ("Tam Ridley", "Ines Varga", "Olu Brand"):
         assert name in text
+
+
+def test_pdf_embeds_a_font_that_prints_symbols_and_any_script(
+    session: Session, world: World
+) -> None:
+    # A client name in Greek and Cyrillic (scripts DejaVu Sans covers), and the symbols the
+    # core PDF fonts lose.
+    world.client_org.name = "Γεωτεχνική Κοιλάδας · Геотехника Долины"
+    session.add(world.client_org)
+    session.commit()
+    certificate = issue(session, world)
+    text = pdf_text(certificate.pdf)
+    assert "Γεωτεχνική Κοιλάδας · Геотехника Долины" in text
+    assert "× 10⁻" in text
+    assert "≤" in text
+    assert "±" in text
+    assert "cm²" in text
+    fonts = {
+        str(font.get("/BaseFont", ""))
+        for page in PdfReader(io.BytesIO(certificate.pdf)).pages
+        for font in page["/Resources"]["/Font"].values()
+        for font in [font.get_object()]
+    }
+    assert any("DejaVu" in name for name in fonts), fonts
 
 
 def test_issuing_moves_tests_to_issued_with_a_sign_off_and_audit(
@@ -195,7 +228,7 @@ def test_a_correction_supersedes_the_old_revision(
     assert f"replaces certificate {first.number} rev 1" in text
     assert "72.30 mm" in text
     assert correction.result is not None
-    assert f"{correction.result['result']['k_ref_m_per_s']:.2E} m/s" in text
+    assert f"{written(correction.result['result']['k_ref_m_per_s'])} m/s" in text
 
     page = client.get(f"/verify/{first.verification_code}")
     assert page.status_code == 200
@@ -317,7 +350,7 @@ def test_project_summary_lists_the_issued_tests(session: Session, world: World) 
     assert world.test.result is not None
     assert "Project summary" in text
     assert "26-0107" in text
-    assert f"{world.test.result['result']['k_ref_m_per_s']:.2E}" in text
+    assert written(world.test.result["result"]["k_ref_m_per_s"]) in text
     assert summary.kind == "project"
     second = issue_project_certificate(session, world.project.id, actor=world.manager)
     session.commit()

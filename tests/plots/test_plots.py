@@ -152,11 +152,27 @@ def test_ln_head_labels_time_unit_and_head_unit() -> None:
 
 
 def test_plots_module_imports_nothing_of_the_web() -> None:
-    # Pure SVG text; the one thing it takes from the service is the engine's ln h-t fit.
+    # Pure SVG text; it takes from the service the engine's ln h-t fit and the one
+    # formatter's unit table.
     assert plots.__file__ is not None
     text = Path(plots.__file__).read_text(encoding="utf-8")
     for name in ("fastapi", "starlette", "jinja2", "sqlmodel"):
         assert f"import {name}" not in text
         assert f"from {name}" not in text
     imported = [line for line in text.splitlines() if line.startswith("from service.")]
-    assert imported == ["from service.lab_tests.reduction import fit_log_head"]
+    assert imported == [
+        "from service.figures import DISPLAY, number, system",
+        "from service.lab_tests.reduction import fit_log_head",
+    ]
+
+
+def test_k_depth_in_us_customary_units() -> None:
+    # 2.0 m = 6.56 ft (1 ft = 0.3048 m exactly); 1e-8 m/s × 86 400 s/day ÷ 0.3048 m/ft
+    # = 2.83e-3 ft/day (international foot, 1959).
+    svg = plots.k_depth_svg({"BH-01": [(2.0, 1e-8)]}, plot_id="depth", units="us")
+    desc = parse(svg).find(f"{SVG}desc").text
+    assert "Depth below ground level (ft)" in svg
+    assert "k₂₀ (ft/day), log scale" in svg
+    assert "depths 0 to 6.56 ft" in desc
+    assert "2.83 × 10⁻³ ft/day" in desc
+    assert "m/s" not in svg

@@ -5,15 +5,30 @@ from __future__ import annotations
 
 import re
 
+import pytest
 from fastapi.testclient import TestClient
 from sqlmodel import Session
 
-from service.common import TestState
+from service.common import Preparation, TestState
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.schemas import SendBackRequest, SignOffRequest
+from service.lab_tests.schemas import (
+    SendBackRequest,
+    SignOffRequest,
+    SpecimenWrite,
+    TrialCreate,
+    TrialExclusion,
+)
 from service.signoffs.service import sign_offs_of
-from tests.web.manager.conftest import HTMX, PASSWORD, Lab, new_test, signed_in, submitted_test
+from tests.web.manager.conftest import (
+    HTMX,
+    PASSWORD,
+    Lab,
+    falling_head_entries,
+    new_test,
+    signed_in,
+    submitted_test,
+)
 
 
 def _state(session: Session, test_id: int | None) -> str:
@@ -341,3 +356,85 @@ def test_plots_number_trials_as_the_table_and_add_head_time_and_k_time(
     # 6 h per trial: trials 2-5 end at 6, 12, 18 and 24 h of permeation.
     for trial, hours in ((2, 6), (3, 12), (4, 18), (5, 24)):
         assert re.search(rf"trial {trial}: k₂₀ [^;]* m/s at {hours} h", k_time.group(0)), trial
+
+
+def test_dimensions_say_which_state_they_describe_and_trials_count_all_recorded(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    test = new_test(session, lab)
+    assert test.id is not None
+    lab_tests.write_specimen(
+        session,
+        test.id,
+        SpecimenWrite(
+            preparation=Preparation.INTACT,
+            diameter="71.0 mm",
+            length="116.0 mm",
+            final_diameter="70.8 mm",
+            final_length="115.2 mm",
+            wet_mass="912.4 g",
+            water_content="22.0 %",
+            specific_gravity=2.70,
+        ),
+        actor=lab.technician,
+    )
+    written = [
+        lab_tests.record_trial(
+            session,
+            test.id,
+            TrialCreate(**falling_head_entries(k)),
+            idempotency_key=f"dims-{seq}",
+            actor=lab.technician,
+        )
+        for seq, k in enumerate((2.0e-10, 2.1e-10, 1.95e-10, 2.05e-10, 9.0e-10), start=1)
+    ]
+    odd = written[-1].trial
+    assert odd.id is not None
+    lab_tests.exclude_trial(
+        session,
+        test.id,
+        odd.id,
+        TrialExclusion(version=odd.version, reason="air bubble in the standpipe"),
+        actor=lab.technician,
+    )
+    lab_tests.submit_test(session, test.id, SignOffRequest(password=PASSWORD), actor=lab.technician)
+    session.commit()
+    signed_in(session, web_client, lab.reviewer)
+    text = web_client.get(f"/tests/{test.id}/review").text
+    state = text.split('data-testid="specimen-state"')[1].split("</dl>")[0]
+    assert "Diameter × length, as prepared" in state
+    assert "71.0 mm × 116.0 mm" in state
+    assert "Diameter × length, at permeation" in state
+    assert "70.8 mm × 115.2 mm" in state
+    assert "Dry density, at permeation" in state
+    assert "2.70" in state  # Gs as it is reported, not 2.7
+    averaged = text.split('data-testid="trials-averaged"')[1].split("</dd>")[0]
+    assert "4 of 5 recorded" in averaged
+
+
+def test_audit_list_reads_as_actions_in_words_and_lab_time(
+    session: Session, lab: Lab, web_client: TestClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from service.config import get_settings
+
+    monkeypatch.setenv("LAB_TIMEZONE", "Asia/Kolkata")  # UTC+05:30 all year, no DST
+    get_settings.cache_clear()
+    try:
+        test = submitted_test(session, lab)
+        signed_in(session, web_client, lab.reviewer)
+        text = web_client.get(f"/tests/{test.id}/review").text
+    finally:
+        monkeypatch.delenv("LAB_TIMEZONE")
+        get_settings.cache_clear()
+    audit = text.split('data-testid="audit"')[1].split("</section>")[0]
+    # Labels, not column names; rounded values with units.
+    assert "Result, k at the reference temperature" in audit
+    assert "result k ref" not in audit
+    assert re.search(r"\d\.\d\d × 10⁻[⁰¹²³⁴⁵⁶⁷⁸⁹]+ m/s", audit)
+    assert not re.search(r"\d\.\d{6,}", audit)  # no unrounded float
+    # The lab's local time, to the minute, with its zone; no microseconds.
+    assert " IST" in audit
+    assert not re.search(r"\d\d:\d\d:\d\d", audit)
+    assert not re.search(r"\.\d{6}", audit)
+    # One item per action: the fields saved together are listed under it.
+    assert audit.count('class="audit-list__changes"') >= 1

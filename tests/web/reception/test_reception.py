@@ -391,3 +391,21 @@ def test_signed_out_visitors_go_to_sign_in(web_client: TestClient, lab: Lab) -> 
 def test_an_unknown_project_is_404(web_client: TestClient, session: Session, lab: Lab) -> None:
     sign_in(session, web_client, lab.technician)
     assert web_client.get("/reception?project_id=999999").status_code == 404
+
+
+def test_a_wrong_choice_lists_the_choices_in_plain_words(
+    web_client: TestClient, session: Session, lab: Lab
+) -> None:
+    csrf = sign_in(session, web_client, lab.technician)
+    data = two_rows(lab, "k-choice")
+    data["rows.0.sample_type"] = "tub"
+    data["action"] = "check"
+    response = web_client.post("/reception", data=data, headers={**csrf, **HTMX})
+    assert response.status_code == 422
+    message = re.search(r'id="err-rows-0-sample_type"[^>]*>(.*?)</p>', response.text, re.S)
+    assert message
+    assert "choose one of: tube, block" in message.group(1).lower()
+    assert "tube" in message.group(1)
+    assert "Input should be" not in response.text
+    assert "rows[0]" not in response.text
+    assert sample_count(session) == 0
