@@ -555,7 +555,7 @@ def _kept_conflict(exc: StaleVersion, labels: Mapping[str, str]) -> dict[str, An
     as it is now. Nothing was saved; the entry stays kept on the tablet."""
     yours, current = exc.yours, exc.current
     rows = [
-        {"field": "State of the test", "yours": "", "now": str(current.get("state", ""))},
+        {"field": "State of the test", "yours": "—", "now": str(current.get("state", ""))},
     ]
     if current.get("sent_back_reason") and current.get("state") == "running":
         rows.append({"field": "Sent back because", "yours": "", "now": current["sent_back_reason"]})

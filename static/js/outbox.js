@@ -349,8 +349,8 @@
     var item = el("li", { class: "outbox-entry outbox-entry--" + entry.state, "data-outbox-entry": entry.key });
     var head = el("p", { class: "outbox-entry__head" });
     var states = { kept: "not yet sent", conflict: "not saved: the test changed", refused: "not saved: refused" };
-    head.appendChild(el("strong", {}, entry.label + " " + (index + 1)));
-    head.appendChild(document.createTextNode(" · kept on this tablet, " + states[entry.state]));
+    head.appendChild(el("strong", {}, "Kept " + entry.label.toLowerCase() + " " + (index + 1)));
+    head.appendChild(document.createTextNode(" · on this tablet, " + states[entry.state]));
     item.appendChild(head);
     var figures = el("dl", { class: "outbox-entry__figures" });
     entry.shown.forEach(function (pair) {
@@ -359,7 +359,7 @@
       row.appendChild(el("dd", {}, pair[1]));
       figures.appendChild(row);
     });
-    item.appendChild(figures);
+    if (entry.state !== "conflict") item.appendChild(figures); // the conflict table has them
     if (entry.message) {
       var message = el("div", { class: "outbox-entry__message" });
       message.innerHTML = entry.message; // the server's own escaped HTML, kept as it came
