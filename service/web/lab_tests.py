@@ -558,7 +558,8 @@ def _kept_conflict(exc: StaleVersion, labels: Mapping[str, str]) -> dict[str, An
         {"field": "State of the test", "yours": "—", "now": str(current.get("state", ""))},
     ]
     if current.get("sent_back_reason") and current.get("state") == "running":
-        rows.append({"field": "Sent back because", "yours": "—", "now": current["sent_back_reason"]})
+        reason = current["sent_back_reason"]
+        rows.append({"field": "Sent back because", "yours": "—", "now": reason})
     for name, label in labels.items():
         if name in yours:
             rows.append({"field": label, "yours": str(yours[name] or ""), "now": "not saved"})
