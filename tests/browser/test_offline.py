@@ -194,6 +194,11 @@ def test_a_test_sent_back_while_offline_shows_the_conflict_and_keeps_the_entries
 
     try:
         _open_test(page, live_server, email, test_id)
+        # Online, a refused entry comes back into the form with the message beside the field.
+        _type_trial(page, ("100.0 cm", "70.0 cm", "3600 kg", "18.0 degC"))
+        page.locator("#err-trial-duration").get_by_text("3600 kg").wait_for()
+        assert page.locator("#trial-form").get_by_label("Duration").input_value() == "3600 kg"
+        assert page.get_by_test_id("outbox-count").count() == 0
         _type_trial(page, TRIALS[0])  # online: lands at once (the test starts running)
         page.get_by_text("Trial 1 saved.").wait_for()
         context.set_offline(True)
@@ -247,6 +252,13 @@ def test_a_test_sent_back_while_offline_shows_the_conflict_and_keeps_the_entries
         )
         assert _count(session, Trial, test_id) == 2
         shot("2-resolved")
+        # Nothing kept: signing out asks nothing, and the pages kept for offline use go.
+        asked = len(answers)
+        page.get_by_role("button", name="Sign out").click()
+        page.wait_for_url(f"{live_server}/sign-in*")
+        assert len(answers) == asked
+        pages_kept = "async () => (await caches.keys()).includes('seepline-pages')"
+        assert page.evaluate(pages_kept) is False
         assert errors == []
     except Exception:
         shot("failed")
