@@ -123,6 +123,11 @@
   }
 
   function keep(form) {
+    // A second tap on Save just after the first finds the form already cleared: not an entry.
+    if (!hasTyping(form) && Date.now() - (Number(form.dataset.outboxKeptAt) || 0) < 3000) {
+      return Promise.resolve();
+    }
+    form.dataset.outboxKeptAt = String(Date.now());
     var test = form.dataset.outboxTest;
     var fields = [];
     new FormData(form).forEach(function (value, name) {
@@ -385,7 +390,8 @@
     if (node) {
       var waiting = entries.filter(function (e) { return e.state === "kept"; }).length;
       var blocked = entries.length - waiting;
-      var line = statusText(entries.length);
+      var keeps = entries.length || document.querySelector("form[data-outbox]");
+      var line = keeps ? statusText(entries.length) : "";
       node.textContent = "";
       node.hidden = !entries.length && !line;
       node.className = "outbox-bar" + (status === "offline" ? " outbox-bar--offline" : "");
