@@ -47,6 +47,7 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.projects.models import Project
+from service.queue_keys import due_of, rank_of
 from service.samples.models import Sample
 from service.signoffs.models import SignOff
 
@@ -195,6 +196,14 @@ def seed(samples: int, trial_tests: int, issue_samples: int) -> dict[str, Any]:
             )
         insert(session, Sample, bulk_samples)
         sample_ids = ids_by_lab_id(session, "25-")
+        # The queue's keys of a bulk test (inserted without the flush hook that keeps them).
+        keys_of = {
+            row["lab_id"]: {
+                "queue_due_date": due_of(None, row["due_date"]),
+                "queue_rank": rank_of(row["priority"]),
+            }
+            for row in bulk_samples
+        }
         running_source = demo_test(session, TestState.RUNNING)
         trial_lab_ids = [f"25-{n:06d}" for n in range(1, trial_tests + 1)]
         reserved = set(trial_lab_ids)
@@ -218,6 +227,7 @@ def seed(samples: int, trial_tests: int, issue_samples: int) -> dict[str, Any]:
                     "state": state.value,
                     "technician_id": assigned,
                     "requested_at": NOW - timedelta(days=rng.randint(0, 1000)),
+                    **keys_of[lab_id],
                 }
             )
         insert(session, PermeabilityTest, bulk_tests)

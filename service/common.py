@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import date
 from enum import StrEnum
 from typing import Any
 
@@ -89,6 +90,16 @@ class TestState(StrEnum):
     APPROVED = "approved"
     ISSUED = "issued"
     SUPERSEDED = "superseded"
+
+
+# Tests still owed to a client: these count towards load and can be overdue.
+OPEN_STATES = (TestState.PLANNED, TestState.RUNNING, TestState.SUBMITTED, TestState.APPROVED)
+# The open-test condition as literal SQL: the partial indexes are declared with it, and a
+# query must carry it with constants (not bound parameters) for SQLite to use them.
+OPEN_TEST_SQL = "state IN ({})".format(", ".join(f"'{s.value}'" for s in OPEN_STATES))
+# The queue's stored due date of a test with none (its own and its sample's both unset):
+# the latest date, so such tests sort last and every row has a key an index can serve.
+NO_DUE_DATE = date.max
 
 
 class Preparation(StrEnum):

@@ -12,7 +12,7 @@ import hmac
 import weakref
 from collections.abc import AsyncIterator, Callable, Iterator
 from dataclasses import dataclass
-from typing import Annotated, Any
+from typing import Annotated, Any, TypeVar
 
 from fastapi import Depends, Request, Response
 from fastapi.concurrency import run_in_threadpool
@@ -71,6 +71,25 @@ async def _receive_body(request: Request) -> None:
         await request.body()
 
 
+EndpointT = TypeVar("EndpointT", bound=Callable[..., Any])
+
+
+def reads_only(endpoint: EndpointT) -> EndpointT:
+    """Mark a POST route that stores nothing (a live preview): it takes neither SQLite's
+    write gate nor its write lock, so it never queues behind the writers. Put it under the
+    route's decorator."""
+    endpoint.reads_only = True  # type: ignore[attr-defined]
+    return endpoint
+
+
+def writes(request: Request) -> bool:
+    """Whether a request may write: any method but GET, HEAD or OPTIONS, except on a route
+    marked `reads_only`."""
+    if request.method in SAFE_METHODS:
+        return False
+    return not getattr(request.scope.get("endpoint"), "reads_only", False)
+
+
 async def write_gate(request: Request) -> AsyncIterator[None]:
     """On SQLite, let one writing request per process at a time reach the database.
 
@@ -82,7 +101,7 @@ async def write_gate(request: Request) -> AsyncIterator[None]:
     What does not need the lock is done before the gate, so it does not hold up the writers
     queued behind: the body is received (a slow tablet's upload), and the credentials are
     looked up in a read of their own (authenticate then uses them)."""
-    if request.method in SAFE_METHODS or not get_settings().is_sqlite:
+    if not writes(request) or not get_settings().is_sqlite:
         yield
         return
     await _receive_body(request)
@@ -102,7 +121,7 @@ def request_session(
     request: Request, _gate: Annotated[None, Depends(write_gate, scope="function")]
 ) -> Iterator[Session]:
     """The request owns the transaction; writes take SQLite's write lock up front."""
-    with session_scope(write=request.method not in SAFE_METHODS) as session:
+    with session_scope(write=writes(request)) as session:
         yield session
 
 

@@ -15,7 +15,9 @@ from service.lab_tests.models import (
     Trial,
 )
 from service.projects.models import Location, Project
+from service.queue_keys import install as install_queue_keys
 from service.samples.models import Sample
+from service.series.models import CompactionCurvePoint, CompactionSeries, SeriesMember
 from service.signoffs.models import SignOff
 from service.stored_text import install as install_stored_text_check
 
@@ -27,6 +29,8 @@ __all__ = [
     "CertificateTest",
     "ChainHead",
     "Checkpoint",
+    "CompactionCurvePoint",
+    "CompactionSeries",
     "CustodyEvent",
     "IdempotencyRecord",
     "Location",
@@ -37,6 +41,7 @@ __all__ = [
     "Reading",
     "Sample",
     "SaturationStep",
+    "SeriesMember",
     "SignOff",
     "Specimen",
     "TestApparatus",
@@ -45,3 +50,4 @@ __all__ = [
 ]
 
 install_stored_text_check()
+install_queue_keys()

@@ -28,8 +28,10 @@ from fastapi.testclient import TestClient  # noqa: E402
 from sqlmodel import Session, SQLModel  # noqa: E402
 
 import service.models  # noqa: E402, F401
+from service import queue  # noqa: E402
 from service.config import get_settings  # noqa: E402
 from service.db import get_engine  # noqa: E402
+from service.lab_tests import preview  # noqa: E402
 
 DATABASE_URL = DATABASES.url
 IS_POSTGRES = DATABASES.is_postgres
@@ -94,6 +96,8 @@ def engine(migrated_engine: sa.Engine) -> Iterator[sa.Engine]:
     """The app's engine on a migrated database, emptied again after the test."""
     yield migrated_engine
     empty_all_tables(migrated_engine)
+    queue.forget()  # what is kept a few seconds, or per test, is of the tables just emptied
+    preview.forget()
 
 
 @pytest.fixture

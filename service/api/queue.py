@@ -30,6 +30,14 @@ def read_queue(
     overdue: bool | None = None,
     limit: Limit = DEFAULT_LIMIT,
     offset: Offset = 0,
+    after: Annotated[
+        str | None,
+        Query(
+            max_length=200,
+            description="the `next_after` of the page before (keyset paging, the same cost on "
+            "every page; `offset` is then not applied)",
+        ),
+    ] = None,
 ) -> QueueView:
     """Counts by state, overdue count, open tests per technician, and the page of tests
     sorted by due date (receipt plus the project's turnaround, or the test's own)."""
@@ -41,4 +49,4 @@ def read_queue(
         due_before=due_before,
         overdue=overdue,
     )
-    return queue_view(session, filters, limit=limit, offset=offset)
+    return queue_view(session, filters, limit=limit, offset=offset, after=after)

@@ -5,8 +5,9 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Header
+from fastapi import APIRouter, Depends, Header
 
+from service.db import session_scope
 from service.deps import LabStaff, SessionDep
 from service.lab_tests import service as lab_tests
 from service.lab_tests.schemas import TrialCreate, TrialExclusion, TrialUpdate, TrialWritten
@@ -28,10 +29,17 @@ _ERRORS: dict[int | str, dict[str, Any]] = {
 }
 
 
+def prepared_trial(test_id: int, data: TrialCreate) -> lab_tests.PreparedTrial:
+    """The trial reduced in a read of its own, before the write gate and the test's lock
+    (declared before the session, so it runs first)."""
+    with session_scope() as session:
+        return lab_tests.prepare_trial(session, test_id, data)
+
+
 @router.post("", status_code=201, response_model=TrialWritten, responses=_ERRORS)
 def record_trial(
     test_id: int,
-    data: TrialCreate,
+    prepared: Annotated[lab_tests.PreparedTrial, Depends(prepared_trial)],
     session: SessionDep,
     user: LabStaff,
     idempotency_key: Annotated[
@@ -46,7 +54,7 @@ def record_trial(
     the trial and the test's live reduction (per-trial k, k_ref, gradient and the checks).
     A retry with the same key and body gets the same answer and stores nothing."""
     return lab_tests.record_trial(
-        session, test_id, data, idempotency_key=idempotency_key, actor=user
+        session, test_id, prepared, idempotency_key=idempotency_key, actor=user
     )
 
 

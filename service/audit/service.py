@@ -21,8 +21,17 @@ from sqlmodel import Session, SQLModel, col, select
 from service.audit import chain
 from service.audit.models import AuditEvent
 
-# Columns that never go into the audit values (secrets, or bulky derived blobs).
-_SKIPPED = {"password_hash", "token_hash", "csrf_token", "pdf", "row_hash", "prev_hash"}
+# Secrets, the chain's own links, and derived columns (the queue's keys: service/queue_keys.py).
+_SKIPPED = {
+    "password_hash",
+    "token_hash",
+    "csrf_token",
+    "pdf",
+    "row_hash",
+    "prev_hash",
+    "queue_due_date",
+    "queue_rank",
+}
 # Records kept in another record's chain: table -> (the column naming the owner, its table).
 OWNERS: dict[str, tuple[str, str]] = {
     "trial": ("test_id", "permeability_test"),
@@ -32,6 +41,8 @@ OWNERS: dict[str, tuple[str, str]] = {
     "test_apparatus": ("test_id", "permeability_test"),
     "reading": ("trial_id", "trial"),
     "location": ("project_id", "project"),
+    "series_member": ("series_id", "compaction_series"),
+    "compaction_curve_point": ("series_id", "compaction_series"),
     "access_token": ("user_id", "app_user"),
 }
 

@@ -15,6 +15,7 @@ from sqlmodel import Session, col, select
 
 from service.accounts.models import Organisation, User
 from service.apparatus.models import Apparatus
+from service.certificates.series import SeriesSection, build_series_sections
 from service.common import CertificateKind, OrganisationKind, Preparation
 from service.config import get_settings
 from service.lab_tests.models import (
@@ -177,6 +178,7 @@ class CertificateDocument:
     supersede_reason: str = ""
     key_id: str = ""
     cautions: tuple[str, ...] = field(default=CAUTIONS)
+    series: tuple[SeriesSection, ...] = ()  # compaction series (project summary only)
 
     @property
     def title(self) -> str:
@@ -504,4 +506,18 @@ def build_document(
         supersedes=supersedes,
         supersede_reason=supersede_reason,
         key_id=key_id,
+        series=_series_sections(session, kind, project, samples, issued_by),
     )
+
+
+def _series_sections(
+    session: Session,
+    kind: CertificateKind,
+    project: Project,
+    samples: Sequence[tuple[Sample, Sequence[PermeabilityTest]]],
+    issuer: User,
+) -> tuple[SeriesSection, ...]:
+    if kind != CertificateKind.PROJECT or project.id is None:
+        return ()
+    test_ids = [t.id for _sample, tests in samples for t in tests if t.id is not None]
+    return build_series_sections(session, project.id, test_ids, issuer=issuer)

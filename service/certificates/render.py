@@ -17,6 +17,7 @@ from service.certificates.document import (
     TestSection,
     format_k,
 )
+from service.certificates.series import render_series
 from service.common import CertificateKind
 
 INK = (25, 32, 40)
@@ -707,6 +708,7 @@ def render_pdf(doc: CertificateDocument) -> bytes:
     _parties(pdf, doc)
     if doc.kind == CertificateKind.PROJECT:
         _project_table(pdf, doc)
+        render_series(pdf, doc.series)
     else:
         for sample in doc.samples:
             _sample_block(pdf, sample)

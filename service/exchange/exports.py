@@ -29,6 +29,7 @@ from service.lab_tests.models import PermeabilityTest, Reading, SaturationStep, 
 from service.lab_tests.reduction import Scope, catalogue
 from service.projects.models import Location, Project
 from service.samples.models import Sample
+from service.series.service import project_series_json
 from service.signoffs.models import SignOff
 from service.text import CONTROL_CHARACTERS, spreadsheet_text
 
@@ -407,6 +408,7 @@ def project_json(session: Session, project_id: int, *, user: User) -> dict[str, 
             }
             for c in certificates
         ],
+        "series": project_series_json(session, project_id, user=user),
         "results": {"columns": list(HEADERS), "rows": rows},
         "entries": entry_legend(),
     }

@@ -9,6 +9,8 @@ import sqlalchemy as sa
 from sqlmodel import Field, SQLModel
 
 from service.common import (
+    NO_DUE_DATE,
+    OPEN_TEST_SQL,
     Preparation,
     TestMethod,
     TestState,
@@ -36,6 +38,25 @@ class PermeabilityTest(SQLModel, table=True):
         sa.CheckConstraint(
             "reference_temperature_c BETWEEN 0 AND 40", name="reference_temperature_range"
         ),
+        # The queue: counts and load by state and technician, overdue by due date; the
+        # page of open tests in due-date or urgency order, and its keyset paging.
+        sa.Index("ix_permeability_test_queue", "state", "technician_id", "queue_due_date"),
+        sa.Index(
+            "ix_permeability_test_open_by_due",
+            "queue_due_date",
+            "queue_rank",
+            "id",
+            sqlite_where=sa.text(OPEN_TEST_SQL),
+            postgresql_where=sa.text(OPEN_TEST_SQL),
+        ),
+        sa.Index(
+            "ix_permeability_test_open_by_rank",
+            "queue_rank",
+            "queue_due_date",
+            "id",
+            sqlite_where=sa.text(OPEN_TEST_SQL),
+            postgresql_where=sa.text(OPEN_TEST_SQL),
+        ),
     )
 
     id: int | None = Field(default=None, primary_key=True)
@@ -47,7 +68,7 @@ class PermeabilityTest(SQLModel, table=True):
     correction_reason: str = Field(default="", max_length=1000)
     method: str = Field(max_length=30)
     standard: str = Field(default="", max_length=40)
-    state: str = Field(default="planned", max_length=20, index=True)
+    state: str = Field(default="planned", max_length=20)
     technician_id: int | None = Field(default=None, foreign_key="app_user.id", index=True)
     reviewer_id: int | None = Field(default=None, foreign_key="app_user.id")
     permeant: str = Field(default="de-aired tap water", max_length=100)
@@ -75,6 +96,11 @@ class PermeabilityTest(SQLModel, table=True):
     input_hash: str = Field(default="", max_length=64)
     sent_back_reason: str = Field(default="", max_length=1000)
     due_date: date | None = None
+    # The queue's order, derived and kept by service/queue_keys.py (not audited): the
+    # effective due date (the test's own, else its sample's; NO_DUE_DATE when neither) and
+    # the urgency rank of its sample (0 urgent, 1 normal).
+    queue_due_date: date = Field(default=NO_DUE_DATE)
+    queue_rank: int = 1
     requested_at: datetime = created_at_field()
     started_at: datetime | None = timestamp_field()
     submitted_at: datetime | None = timestamp_field()

@@ -96,6 +96,13 @@ def trials_of(session: Session, test_id: int) -> list[Trial]:
     )
 
 
+def trial_with_key(session: Session, test_id: int, key: str) -> int | None:
+    """The id of the test's trial written with this idempotency key, if any."""
+    return session.exec(
+        select(Trial.id).where(Trial.test_id == test_id, Trial.idempotency_key == key)
+    ).first()
+
+
 def readings_of(session: Session, trial_ids: Sequence[int]) -> dict[int, list[Reading]]:
     out: dict[int, list[Reading]] = {trial_id: [] for trial_id in trial_ids}
     if trial_ids:

@@ -10,6 +10,7 @@ are the engine's own reading of the typed text (units are parsed once).
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
 from sqlmodel import Session, col, delete
@@ -31,7 +32,15 @@ from service.lab_tests import reduction
 from service.lab_tests.lifecycle import start
 from service.lab_tests.models import PermeabilityTest, Reading, SaturationStep, Specimen, Trial
 from service.lab_tests.permissions import Action, require
-from service.lab_tests.reading import get_test, readings_of, saturation_of, specimen_of, trials_of
+from service.lab_tests.preview import inputs_of, stamp_of
+from service.lab_tests.reading import (
+    get_test,
+    readings_of,
+    saturation_of,
+    specimen_of,
+    trial_with_key,
+    trials_of,
+)
 from service.lab_tests.reading import trial_read as read_trial
 from service.lab_tests.reduction import Reduction
 from service.lab_tests.schemas import (
@@ -84,9 +93,10 @@ def problem_read(problem: FieldProblem) -> ProblemRead:
 
 
 def live(
-    reduced: Reduction, pending: Sequence[FieldProblem], trials: Sequence[Trial]
+    reduced: Reduction, pending: Sequence[FieldProblem], saved_as: int | None = None
 ) -> LiveReduction:
-    """The reduction as the API shows it; `pending` names what is still missing or refused."""
+    """The reduction as the API shows it; `pending` names what is still missing or refused;
+    the trial reduced unsaved ("new") is shown as `saved_as` once stored."""
     if reduced.result is None:
         return LiveReduction(
             engine_version=reduction.ENGINE_VERSION,
@@ -95,10 +105,11 @@ def live(
             checks=[],
             pending=[problem_read(p) for p in pending],
         )
-    seq = {t.id if t.id is not None else reduction.UNSAVED: t.seq for t in trials}
     outputs = [
-        {**output, "trial_id": key if isinstance(key, int) else 0, "seq": seq.get(key, 0)}
-        for key, output in zip(reduced.keys, reduced.result["trials"], strict=True)
+        {**output, "trial_id": key if isinstance(key, int) else saved_as or 0, "seq": number}
+        for key, number, output in zip(
+            reduced.keys, reduced.numbers, reduced.result["trials"], strict=True
+        )
     ]
     return LiveReduction.model_validate(
         {
@@ -116,7 +127,7 @@ def live_reduction(session: Session, test_id: int, *, actor: User) -> LiveReduct
     the engine still needs or refuses."""
     test = get_test(session, test_id, actor=actor)
     reduced = reduction.reduce_stored(session, test)
-    return live(reduced, reduced.problems, trials_of(session, test.id or 0))
+    return live(reduced, reduced.problems)
 
 
 # --- specimen and saturation ----------------------------------------------------------------------
@@ -212,8 +223,10 @@ def add_saturation_step(
             session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
         )
         if replay is not None:
-            stored = session.get(SaturationStep, replay.response["saturation_step_id"])
-            assert stored is not None
+            found = replay.resource_id
+            stored = session.get(SaturationStep, found) if found is not None else None
+            if stored is None:
+                raise Conflict(f"the step first written with this {idempotency.HEADER} is gone")
             return stored
     require_based_on(test, based_on_version, sent)
     require(test, actor, Action.RECORD)
@@ -238,7 +251,7 @@ def add_saturation_step(
             user_id=actor.id,
             request_hash=request_hash,
             status_code=201,
-            response={"saturation_step_id": step.id},
+            resource_id=step.id,
         )
     return step
 
@@ -298,11 +311,22 @@ def _check_trial(
     return _Checked(reduced, pending, reduced, at)
 
 
+def _checked_new(reduced: Reduction) -> _Checked:
+    """A new trial's check from its reduction (key "new"): 422 at its own fields."""
+    own, pending = reduced.split(reduction.UNSAVED)
+    if own:
+        raise InvalidInput(problems=own)
+    at = reduced.position(reduction.UNSAVED)
+    assert at is not None
+    return _Checked(reduced, pending, reduced, at)
+
+
 def _store_readings(
-    session: Session, trial: Trial, rows: list[tuple[float, str, float, str]]
+    session: Session, trial: Trial, rows: list[tuple[float, str, float, str]], *, new: bool = False
 ) -> list[Reading]:
     assert trial.id is not None
-    session.exec(delete(Reading).where(col(Reading.trial_id) == trial.id))
+    if not new:  # a new trial has none to replace
+        session.exec(delete(Reading).where(col(Reading.trial_id) == trial.id))
     # Readings are derived rows of `trial.entries`, whose changes are audited.
     readings = [
         Reading(
@@ -319,21 +343,54 @@ def _written(
     test: PermeabilityTest,
     trial: Trial,
     readings: Sequence[Reading],
-    checked: _Checked,
-    trials: Sequence[Trial],
+    reduced: Reduction,
+    pending: Sequence[FieldProblem],
 ) -> TrialWritten:
     return TrialWritten(
         trial=read_trial(trial, readings),
         test_state=test.state,
         test_version=test.version,
-        reduction=live(checked.reduced, checked.pending, trials),
+        reduction=live(reduced, pending, saved_as=trial.id),
     )
+
+
+@dataclass(frozen=True)
+class PreparedTrial:
+    """A new trial reduced before the write lock (the API's dependency runs it in a read of
+    its own): the body as sent, and the reduction with the stamp of the inputs it read. The
+    write uses it when the stamp still holds under the lock, and reduces again otherwise."""
+
+    data: TrialCreate
+    entries: dict[str, Any]
+    stamp: tuple[Any, ...] | None = None
+    reduced: Reduction | None = None
+
+
+def prepare_trial(session: Session, test_id: int, data: TrialCreate) -> PreparedTrial:
+    """Reduce the test with the new trial from a read of its own, before any lock; nothing
+    is checked against a user here (the write does that) and nothing is stored."""
+    entries = data.model_dump(mode="json", exclude_unset=True, exclude_none=True)
+    inputs = inputs_of(session, test_id)
+    if inputs is None:
+        return PreparedTrial(data=data, entries=entries)
+    return PreparedTrial(data, entries, inputs.stamp, inputs.reduce(entries))
+
+
+def _replay(session: Session, test: PermeabilityTest, trial_id: int | None) -> TrialWritten:
+    """The answer to a retried trial write: the trial stored by the first, with the test's
+    reduction as it stands (the same as the first answer unless the test changed since)."""
+    trial = session.get(Trial, trial_id) if trial_id is not None else None
+    if trial is None or trial.id is None:
+        raise Conflict(f"the trial first written with this {idempotency.HEADER} is gone")
+    reduced = reduction.reduce_stored(session, test)
+    readings = readings_of(session, [trial.id])[trial.id]
+    return _written(test, trial, readings, reduced, reduced.problems)
 
 
 def record_trial(
     session: Session,
     test_id: int,
-    data: TrialCreate,
+    data: TrialCreate | PreparedTrial,
     *,
     idempotency_key: str | None,
     actor: User,
@@ -341,40 +398,43 @@ def record_trial(
 ) -> TrialWritten:
     """Store one trial exactly as typed and answer it with the live reduction.
 
-    A retry with the same `idempotency_key` and body gets the first answer again and stores
-    nothing; the same key with another body is a 409. A trial the engine refuses is a 422
-    naming the field (at the trial's own fields, labelled with its number), and nothing is
-    stored. A stale `based_on_version` is a 409 (`require_based_on`), checked after the
-    replay so a retry of a trial that landed is answered as landed."""
+    A retry with the same `idempotency_key` and body gets the trial it stored again and
+    stores nothing; the same key with another body is a 409. A trial the engine refuses is
+    a 422 naming the field (at the trial's own fields, labelled with its number), and
+    nothing is stored. A stale `based_on_version` is a 409 (`require_based_on`), checked
+    after the replay so a retry of a trial that landed is answered as landed. Given a
+    `PreparedTrial`, its reduction is used when the test's inputs (their stamp: the test's
+    version and state, its trials, specimen, saturation and apparatus) are still those it
+    read; the test is locked meanwhile."""
+    prepared = data if isinstance(data, PreparedTrial) else prepare_trial(session, test_id, data)
     key = idempotency.check_key(idempotency_key)
     test = get_test(session, test_id, actor=actor, lock=True)
     assert test.id is not None
     assert actor.id is not None
-    entries = data.model_dump(mode="json", exclude_unset=True, exclude_none=True)
+    entries = prepared.entries
     scope = f"trial:{test.id}"
     request_hash = idempotency.fingerprint(entries)
     replay = idempotency.find_replay(
         session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
     )
     if replay is not None:
-        return TrialWritten.model_validate(replay.response)
+        return _replay(session, test, replay.resource_id)
     require_based_on(test, based_on_version, entries)
     require(test, actor, Action.RECORD)
-    others = trials_of(session, test.id)
-    if any(t.idempotency_key == key for t in others):
+    if trial_with_key(session, test.id, key) is not None:
         raise Conflict(
             f"{idempotency.HEADER} {key!r} already belongs to a trial of test {test.id}; "
             "send a new key for a new trial",
             detail={"idempotency_key": key},
         )
+    stamp, seq = stamp_of(session, test.id)
     trial = Trial(
-        test_id=test.id,
-        seq=(others[-1].seq if others else 0) + 1,
-        idempotency_key=key,
-        entries=entries,
-        recorded_by_id=actor.id,
+        test_id=test.id, seq=seq, idempotency_key=key, entries=entries, recorded_by_id=actor.id
     )
-    checked = _check_trial(session, test, trial, others)
+    if prepared.reduced is not None and prepared.stamp == stamp:
+        checked = _checked_new(prepared.reduced)
+    else:  # the test changed since the reduction was run: run it again, under the lock
+        checked = _check_trial(session, test, trial, trials_of(session, test.id))
     for name, value in checked.columns().items():
         setattr(trial, name, value)
     rows = checked.readings(entries)
@@ -382,8 +442,7 @@ def record_trial(
     session.add(trial)
     session.flush()
     record_created(session, trial, actor_id=actor.id)
-    readings = _store_readings(session, trial, rows)
-    written = _written(test, trial, readings, checked, [*others, trial])
+    readings = _store_readings(session, trial, rows, new=True)
     idempotency.remember(
         session,
         scope=scope,
@@ -391,9 +450,9 @@ def record_trial(
         user_id=actor.id,
         request_hash=request_hash,
         status_code=201,
-        response=written.model_dump(mode="json"),
+        resource_id=trial.id,
     )
-    return written
+    return _written(test, trial, readings, checked.reduced, checked.pending)
 
 
 def _get_trial(session: Session, test: PermeabilityTest, trial_id: int) -> Trial:
@@ -426,7 +485,7 @@ def update_trial(
     rows = checked.readings(entries)
     apply_changes(session, trial, changes, actor_id=actor.id)
     readings = _store_readings(session, trial, rows)
-    return _written(test, trial, readings, checked, [*others, trial])
+    return _written(test, trial, readings, checked.reduced, checked.pending)
 
 
 def exclude_trial(
@@ -460,4 +519,4 @@ def exclude_trial(
     )
     assert trial.id is not None
     readings = readings_of(session, [trial.id])[trial.id]
-    return _written(test, trial, readings, checked, [*others, trial])
+    return _written(test, trial, readings, checked.reduced, checked.pending)

@@ -28,6 +28,7 @@ from service.lab_tests.permissions import (
     may_request_tests,
     may_review,
 )
+from service.lab_tests.preview import PreviewInputs, preview_inputs
 from service.lab_tests.reading import (
     TestRecord,
     apparatus_of,
@@ -46,9 +47,11 @@ from service.lab_tests.reading import (
     trials_of,
 )
 from service.lab_tests.recording import (
+    PreparedTrial,
     add_saturation_step,
     exclude_trial,
     live_reduction,
+    prepare_trial,
     record_trial,
     update_trial,
     write_specimen,
@@ -57,6 +60,8 @@ from service.lab_tests.recording import (
 __all__ = [
     "EDITABLE",
     "Action",
+    "PreparedTrial",
+    "PreviewInputs",
     "TestRecord",
     "add_saturation_step",
     "allowed_actions",
@@ -73,6 +78,8 @@ __all__ = [
     "may_assign",
     "may_request_tests",
     "may_review",
+    "prepare_trial",
+    "preview_inputs",
     "read_test",
     "readings_of",
     "recompute",

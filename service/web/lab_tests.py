@@ -25,7 +25,7 @@ from service.apparatus.models import Apparatus
 from service.apparatus.service import is_overdue, list_apparatus
 from service.common import ApparatusKind, Preparation, Role
 from service.db import utcnow
-from service.deps import CurrentUser, SessionDep
+from service.deps import CurrentUser, SessionDep, reads_only
 from service.errors import FieldProblem, PermissionDenied, StaleVersion
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
@@ -116,7 +116,12 @@ def page_reduction(
 ) -> PageReduction:
     """The reduction of the stored entries plus `entries` (the trial being typed), through
     the door exactly as a save would run it; nothing is stored."""
-    reduced: Reduction = reduce_stored(session, test, unsaved=entries or None)
+    return shown_reduction(reduce_stored(session, test, unsaved=entries or None), entries)
+
+
+def shown_reduction(reduced: Reduction, entries: Mapping[str, Any] | None) -> PageReduction:
+    """A reduction (with `entries`, the trial being typed, under the key "new") as the page
+    shows it."""
     outcome = PageReduction(keys=list(reduced.keys), typed=bool(entries))
     if reduced.result is None:
         own, others = reduced.split("new") if entries else ([], list(reduced.problems))
@@ -587,12 +592,44 @@ def _test_method(session: Session, test_id: int, user: User) -> str:
 
 
 @router.post("/{test_id}/trials/preview")
+@reads_only
 def preview_trial(
     request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
 ) -> Response:
     """k, k20, gradient and every check with the trial being typed; nothing is stored.
-    htmx gets the result (messages beside the trial's fields out of band); 422 when an
-    entry is refused."""
+    htmx gets the result (messages beside the trial's fields out of band) from one read
+    (service/lab_tests/preview.py); 422 when an entry is refused."""
+    if not htmx_details(request).wants_fragment or user.role == Role.CLIENT:
+        return _preview_page(request, test_id, user, session, form)
+    inputs = lab_tests.preview_inputs(session, test_id, actor=user)
+    test = inputs.test
+    typed, entries = typed_trial(form, test.method)
+    forms = Forms(values={**typed, "trial.idempotency_key": str(form.get("idempotency_key", ""))})
+    reduction = shown_reduction(inputs.reduce(entries or None), entries)
+    forms.errors.update(reduction.field_errors)
+    context = layout_context(
+        request,
+        user,
+        test=test,
+        section="preview",
+        forms=forms,
+        values=forms.values,
+        errors=forms.errors,
+        reduction=reduction,
+        stored_result=test.result if test.state not in lab_tests.EDITABLE else None,
+        can_record=lab_tests.Action.RECORD in lab_tests.allowed_actions(test, user),
+        trial_entries=trial_form(test.method, user.display_units),
+        reading_rows=READING_ROWS if takes_readings(test.method) else 0,
+        oob=True,
+    )
+    status = 422 if reduction.refused else 200
+    return render(request, PAGE, context, fragment="tests/_preview.html", status_code=status)
+
+
+def _preview_page(
+    request: Request, test_id: int, user: User, session: Session, form: FormData
+) -> Response:
+    """The preview as a whole page (a browser without JavaScript)."""
     typed, entries = typed_trial(form, _test_method(session, test_id, user))
     forms = Forms(values={**typed, "trial.idempotency_key": str(form.get("idempotency_key", ""))})
     context = _context(

@@ -29,6 +29,7 @@ from service.projects.service import list_projects
 from service.queue import (
     QueueFilters,
     QueueTest,
+    cached,
     queue_counts,
     queue_tests,
     technician_load,
@@ -177,6 +178,11 @@ def technicians(session: Session) -> list[User]:
 
 
 def _filter_choices(session: Session, user: User) -> dict[str, Any]:
+    """The filters' lists (clients, projects, technicians), kept a few seconds per user."""
+    return cached(("filter choices", user.id), lambda: _choices(session, user))
+
+
+def _choices(session: Session, user: User) -> dict[str, Any]:
     clients, _ = list_organisations(
         session, kind=OrganisationKind.CLIENT, limit=OPTION_LIMIT, offset=0
     )

@@ -16,11 +16,14 @@ from typing import Any
 
 import pytest
 from fastapi.routing import iter_route_contexts
+from sqlmodel import select
 from starlette.routing import Mount
 
 from service.main import create_app
+from service.series.models import CompactionCurvePoint, CompactionSeries, SeriesMember
 from tests.auth_helpers import bearer
 from tests.certificates.arrange import trial_entries
+from tests.factories import make_test
 from tests.proof.conftest import IDENTITIES, PASSWORD, Proof
 
 STAFF = frozenset({"technician", "reviewer", "lab_manager", "admin"})
@@ -199,6 +202,22 @@ ACCESS: dict[str, Access] = {
     "POST /tests/{test_id}/trials/{trial_id}/exclude": Access(WRITERS),
     "POST /tests/{test_id}/trials/{trial_id}/include": Access(WRITERS),
     "POST /tests/{test_id}/submit": Access(WRITERS),
+    # compaction series (service/api/series.py, service/web/series.py)
+    "POST /api/v1/projects/{project_id}/series": Access(STAFF),
+    "GET /api/v1/projects/{project_id}/series": _owned(SIGNED_IN),
+    "GET /api/v1/series/{series_id}": _owned(SIGNED_IN),
+    "PATCH /api/v1/series/{series_id}": Access(STAFF),
+    "POST /api/v1/series/{series_id}/members": Access(STAFF),
+    "DELETE /api/v1/series/{series_id}/members/{member_id}": Access(STAFF),
+    "POST /api/v1/series/{series_id}/curve-points": Access(STAFF),
+    "DELETE /api/v1/series/{series_id}/curve-points/{point_id}": Access(STAFF),
+    "GET /projects/{project_id}/series": _owned(SIGNED_IN),
+    "POST /projects/{project_id}/series": Access(STAFF),
+    "GET /series/{series_id}": _owned(SIGNED_IN),
+    "POST /series/{series_id}/members": Access(STAFF),
+    "POST /series/{series_id}/curve-points": Access(STAFF),
+    "POST /series/{series_id}/members/{member_id}/remove": Access(STAFF),
+    "POST /series/{series_id}/curve-points/{point_id}/remove": Access(STAFF),
 }
 
 
@@ -257,10 +276,60 @@ def _path_values(key: str, identity: str, proof: Proof) -> dict[str, Any]:
         else:
             spare = bearer(proof.session, proof.users[identity])
             values["token_id"] = _token_id(proof, spare)
+    if "{series_id}" in key:
+        values.update(_series_values(proof))
     if "{certificate_id}" in key or "{verification_code}" in key:
         values["certificate_id"] = proof.certificate.id
         values["verification_code"] = proof.certificate.verification_code
     return values
+
+
+def _series_of(proof: Proof) -> CompactionSeries:
+    """The proof project's compaction series, opened on first use."""
+    project_id = proof.world.project.id
+    assert project_id is not None
+    query = select(CompactionSeries).where(CompactionSeries.project_id == project_id)
+    series = proof.session.exec(query).first()
+    if series is None:
+        series = CompactionSeries(project_id=project_id, name="Matrix series")
+        proof.session.add(series)
+        proof.session.commit()
+    proof.session.refresh(series)
+    return series
+
+
+def _fresh_test_id(proof: Proof) -> int:
+    """A new test of the proof project, for a member of its own (members are one per test)."""
+    test = make_test(proof.session, sample=proof.world.sample, series=100 + next(_serial))
+    proof.session.commit()
+    assert test.id is not None
+    return test.id
+
+
+def _series_values(proof: Proof) -> dict[str, Any]:
+    """A series with a fresh member and curve point per call: a removal by an earlier identity
+    leaves the next one something to remove."""
+    series = _series_of(proof)
+    assert series.id is not None
+    member = SeriesMember(
+        series_id=series.id,
+        test_id=_fresh_test_id(proof),
+        label=f"M{next(_serial)}",
+        water_content=0.16,
+        water_content_text="16 %",
+        dry_density_kg_per_m3=1780.0,
+        dry_density_text="1780 kg/m**3",
+    )
+    point = CompactionCurvePoint(
+        series_id=series.id,
+        water_content=0.15,
+        water_content_text="15 %",
+        dry_density_kg_per_m3=1800.0,
+        dry_density_text="1800 kg/m**3",
+    )
+    proof.session.add_all([member, point])
+    proof.session.commit()
+    return {"series_id": series.id, "member_id": member.id, "point_id": point.id}
 
 
 def _token_id(proof: Proof, headers: dict[str, str]) -> int:
@@ -419,6 +488,23 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
         },
         "POST /sign-in": lambda: {"data": {"email": world.technician.email, "password": PASSWORD}},
         "POST /bench/preview": lambda: {"data": {"method": "falling_head"}},
+        "POST /api/v1/projects/{project_id}/series": lambda: {
+            "json": {"name": f"S{next(_serial)}"}
+        },
+        "PATCH /api/v1/series/{series_id}": lambda: {
+            "json": {"version": _series_of(proof).version, "material": "sandy CLAY"}
+        },
+        "POST /api/v1/series/{series_id}/members": lambda: {
+            "json": {
+                "test_id": _fresh_test_id(proof),
+                "water_content": "16 %",
+                "dry_density": "1.78 g/cm**3",
+            }
+        },
+        "POST /api/v1/series/{series_id}/curve-points": lambda: {
+            "json": {"water_content": "15 %", "dry_density": "1.80 g/cm**3"}
+        },
+        "POST /projects/{project_id}/series": lambda: {"data": {"name": f"S{next(_serial)}"}},
         "POST /tests/{test_id}/submit": lambda: {"data": {"submit.password": PASSWORD}},
         "POST /tests/{test_id}/review/approve": lambda: {"data": {"password": PASSWORD}},
     }
