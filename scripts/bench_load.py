@@ -511,7 +511,7 @@ def scenarios(facts: dict[str, Any], base: str, secret_key: str) -> list[Scenari
             "live-preview reduction, 4 trials",
             "POST",
             ["/api/v1/reductions"],
-            headers=json_type,
+            headers=technician | json_type,  # signed in: anonymous callers are rate-limited
             body=json.dumps(FOUR_TRIALS),
             goal="p95 < 30 ms",
         ),
@@ -592,7 +592,12 @@ def issue_certificates(base: str, facts: dict[str, Any]) -> dict[str, Any]:
     with httpx.Client(base_url=base, headers=headers, timeout=60) as client:
         for sample_id in facts["issue_sample_ids"]:
             started = time.perf_counter()
-            answer = client.post(f"/api/v1/certificates/samples/{sample_id}")
+            try:
+                answer = client.post(f"/api/v1/certificates/samples/{sample_id}")
+            except httpx.HTTPError as exc:
+                errors += 1
+                print(f"  issue {sample_id}: no answer ({type(exc).__name__})")
+                continue
             latencies.append(time.perf_counter() - started)
             if answer.status_code != 201:
                 errors += 1
@@ -672,6 +677,12 @@ def run_backend(backend: str, args: argparse.Namespace, tool: str) -> tuple[list
             result.verdict = verdict(result, anchors)
             results.append(result)
             print("  " + row(result), flush=True)
+        raw = issue_certificates(base, facts)
+        issued = Result(backend, "d-issue", "issue a certificate (POST)", 1, **raw)
+        issued.goal = "p95 < 500 ms"
+        issued.verdict = verdict(issued, anchors)
+        results.append(issued)
+        print("  " + row(issued), flush=True)
         trial = next((s for s in found if s.key == "b"), None)
         if trial is not None and args.rate:
             settle(base)
@@ -683,12 +694,6 @@ def run_backend(backend: str, args: argparse.Namespace, tool: str) -> tuple[list
             opened.verdict = verdict(opened, anchors)
             results.append(opened)
             print("  " + row(opened), flush=True)
-        raw = issue_certificates(base, facts)
-        issued = Result(backend, "d-issue", "issue a certificate (POST)", 1, **raw)
-        issued.goal = "p95 < 500 ms"
-        issued.verdict = verdict(issued, anchors)
-        results.append(issued)
-        print("  " + row(issued), flush=True)
         if backend == "postgres" and args.workers == 1 and args.two_workers:
             stop_server(server)
             server = start_server(env, port, 2)

@@ -45,6 +45,7 @@ from service.lab_tests.schemas import (
 from service.projects.models import Location, Project
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
+from service.scope.service import ScopeUpdate, update_scope
 from service.series.service import (
     CurvePointCreate,
     MemberCreate,
@@ -182,6 +183,7 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
     admin = users["admin@larkspur-lab.example"]
     apparatus = _load_apparatus(session, now, actor_id=admin.id)
     manager = users["manager@larkspur-lab.example"]
+    _load_scope(session, manager)
     technicians = [
         users["tech.brannagh@larkspur-lab.example"],
         users["tech.aldous@larkspur-lab.example"],
@@ -256,6 +258,25 @@ def load_demo(session: Session, *, now: datetime | None = None) -> bool:
         apparatus_ids=apparatus[TestMethod.FALLING_HEAD],
     )
     return True
+
+
+def _load_scope(session: Session, manager: User) -> None:
+    """The demo lab's accredited scope: three ASTM standards, the D5084 repeatability rule
+    confirmed; every other limit stays "not yet confirmed" until someone confirms it."""
+    standards = [{"standard": s, "edition": ""} for s in ("ASTM D5084", "ASTM D5856", "ASTM D2434")]
+    rule = {
+        "standard": "ASTM D5084",
+        "rule_id": "steady_state",
+        "clause": "termination criteria",
+        "limits": {"band": 0.25, "band_low_k": 0.50, "low_k": 1e-10},
+    }
+    update_scope(
+        session,
+        ScopeUpdate.model_validate(
+            {"version": 0, "note": "Demo scope", "standards": standards, "rules": [rule]}
+        ),
+        actor=manager,
+    )
 
 
 def _load_apparatus(

@@ -17,6 +17,7 @@ from service.lab_tests.models import (
 from service.projects.models import Location, Project
 from service.queue_keys import install as install_queue_keys
 from service.samples.models import Sample
+from service.scope.models import ScopeRule, ScopeStandard, ScopeVersion
 from service.series.models import CompactionCurvePoint, CompactionSeries, SeriesMember
 from service.signoffs.models import SignOff
 from service.stored_text import install as install_stored_text_check
@@ -41,6 +42,9 @@ __all__ = [
     "Reading",
     "Sample",
     "SaturationStep",
+    "ScopeRule",
+    "ScopeStandard",
+    "ScopeVersion",
     "SeriesMember",
     "SignOff",
     "Specimen",

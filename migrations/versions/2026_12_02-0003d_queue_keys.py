@@ -1,5 +1,4 @@
-"""the queue's keys stored on each test (effective due date, urgency rank) and its indexes;
-an idempotency record keeps the record it created instead of a copy of its answer
+"""the queue's keys stored on each test (effective due date, urgency rank) and its indexes
 
 Revision ID: 0003d
 Revises: 0002b
@@ -12,7 +11,6 @@ from datetime import date
 
 import sqlalchemy as sa
 from alembic import op
-from sqlalchemy.dialects import postgresql
 
 revision: str = "0003d"
 down_revision: str | None = "0002b"
@@ -22,7 +20,6 @@ depends_on: str | Sequence[str] | None = None
 # As of this revision (a migration keeps its own copy of the rules it applies).
 _OPEN = "state IN ('planned', 'running', 'submitted', 'approved')"
 _NO_DUE_DATE = date.max
-_JSON = sa.JSON().with_variant(postgresql.JSONB(), "postgresql")
 
 
 def upgrade() -> None:
@@ -83,14 +80,8 @@ def upgrade() -> None:
                 postgresql_where=sa.text(_OPEN),
             )
 
-    with op.batch_alter_table("idempotency_record", schema=None) as batch_op:
-        batch_op.add_column(sa.Column("resource_id", sa.Integer(), nullable=True))
-        batch_op.alter_column("response", existing_type=_JSON, nullable=True)
-
 
 def downgrade() -> None:
-    with op.batch_alter_table("idempotency_record", schema=None) as batch_op:
-        batch_op.drop_column("resource_id")
     with op.batch_alter_table("permeability_test", schema=None) as batch_op:
         batch_op.drop_index("ix_permeability_test_open_by_rank")
         batch_op.drop_index("ix_permeability_test_open_by_due")

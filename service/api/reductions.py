@@ -10,6 +10,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Body, Depends
 from pydantic import BaseModel, Field
 
+from service.deps import SessionDep
 from service.errors import InvalidInput
 from service.lab_tests.reduction import (
     Check,
@@ -99,13 +100,15 @@ EXAMPLES["readings"] = {
 )
 def create_reduction(
     request: Annotated[ReductionRequest, Body(openapi_examples=EXAMPLES)],
+    session: SessionDep,
 ) -> dict[str, Any]:
     """Reduce the trials of one test to hydraulic conductivity, with every check of its standard.
 
+    Checks are judged by the laboratory's accredited scope as it stands (`rules_version`).
     Quantities take any unit of the right dimension. Refusals and impossible tests answer
     422 naming the field, the value received and what is accepted.
     """
-    reduced = reduce_payload(request.model_dump(exclude_none=True))
+    reduced = reduce_payload(request.model_dump(exclude_none=True), session=session)
     if reduced.result is None:
         raise InvalidInput(problems=reduced.problems)
     return reduced.result

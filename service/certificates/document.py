@@ -25,9 +25,10 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
-from service.lab_tests.reduction import Scope, catalogue
+from service.lab_tests.reduction import Scope, catalogue, coverage_words, decision_rule_words
 from service.projects.models import Location, Project
 from service.samples.models import Sample
+from service.scope.service import check_label, scope_of_test, source_words
 from service.signoffs.models import SignOff
 
 CAUTIONS = (
@@ -45,18 +46,6 @@ PREPARATION_LABELS = {
     Preparation.INTACT: "Intact (trimmed from the sample)",
     Preparation.REMOULDED: "Remoulded",
     Preparation.COMPACTED: "Compacted to a target density",
-}
-CHECK_LABELS = {
-    "steady_state": "Repeatability of determinations",
-    "flow_ratio": "Outflow / inflow balance",
-    "gradient_limit": "Hydraulic gradient",
-    "saturation": "Saturation (B-value)",
-    "specimen_size": "Specimen size",
-    "laminar_flow": "Laminar flow",
-    "temperature_range": "Test temperature",
-    "specification": "Specification limit",
-    "hazen": "Plausibility (Hazen)",
-    "darcy_linearity": "Darcy linearity",
 }
 SIGNOFF_LABELS = {
     "performed": "Performed",
@@ -86,7 +75,8 @@ class CheckLine:
     label: str
     status: str  # pass | warn | fail | not_applicable
     message: str
-    source: str
+    source: str  # the document and clause, and "limit not yet confirmed ..." until it is
+    confirmed: bool | None = None  # False: the laboratory has not confirmed the rule's limits
 
 
 @dataclass(frozen=True)
@@ -134,6 +124,10 @@ class TestSection:
     signoffs: tuple[SignOffLine, ...]
     engine_version: str
     input_hash: str
+    coverage: str = ""  # "k = 2.87, ν_eff = 3.0" as the engine returned them
+    decision_rule: str = ""  # in words, with ILAC-G8
+    rules_words: str = ""  # the version of the laboratory's scope that judged the result
+    in_scope: bool = False  # the standard is within the laboratory's accredited scope
 
     @property
     def expanded_u_m_per_s(self) -> float | None:
@@ -271,7 +265,9 @@ def _conditions(
 
 
 def compliance_of(result: dict[str, Any], limit_text: str) -> tuple[str, str]:
-    """('complies' | 'does_not_comply' | 'no_limit', the sentence the certificate prints)."""
+    """('complies' | 'does_not_comply' | 'undecided' | 'no_limit', the sentence the
+    certificate prints); 'undecided' under guarded acceptance when k is within U of the
+    limit (ILAC-G8)."""
     check = next((c for c in result.get("checks", []) if c.get("id") == "specification"), None)
     if check is None or check.get("status") == "not_applicable" or not limit_text:
         return "no_limit", "No specification limit was stated for this test."
@@ -279,6 +275,11 @@ def compliance_of(result: dict[str, Any], limit_text: str) -> tuple[str, str]:
     if check.get("status") == "pass":
         return "complies", (
             f"Complies: k20 = {format_k(k_ref)} m/s does not exceed the limit of {limit_text}."
+        )
+    if check.get("status") == "warn":  # guarded acceptance: within U of the limit
+        return "undecided", (
+            f"Not decidable at this uncertainty: k20 = {format_k(k_ref)} m/s is within its "
+            f"expanded uncertainty of the limit of {limit_text}."
         )
     return "does_not_comply", (
         f"Does not comply: k20 = {format_k(k_ref)} m/s exceeds the limit of {limit_text}."
@@ -365,10 +366,11 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
     checks = tuple(
         CheckLine(
             check_id=c["id"],
-            label=CHECK_LABELS.get(c["id"], c["id"].replace("_", " ").capitalize()),
+            label=check_label(c["id"]),
             status=c["status"],
             message=c.get("message", ""),
-            source=c.get("source", ""),
+            source=source_words(c),
+            confirmed=c.get("limit_confirmed"),
         )
         for c in result.get("checks", [])
     )
@@ -378,6 +380,7 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
         if c.status in ("warn", "fail") and c.check_id != "specification"
     )
     compliance, compliance_text = compliance_of(result, test.spec_k_max_text)
+    scope = scope_of_test(session, test, stored=True)
     summary = result["result"]
     preparation = specimen.preparation if specimen else ""
     return TestSection(
@@ -414,6 +417,10 @@ def build_test_section(session: Session, test: PermeabilityTest) -> TestSection:
         signoffs=_signoffs(session, test.id),
         engine_version=test.engine_version or str(result.get("engine_version", "")),
         input_hash=test.input_hash,
+        coverage=coverage_words(result),
+        decision_rule=decision_rule_words(result),
+        rules_words=scope.rules_words,
+        in_scope=scope.in_scope,
     )
 
 

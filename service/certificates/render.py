@@ -19,6 +19,8 @@ from service.certificates.document import (
 )
 from service.certificates.series import render_series
 from service.common import CertificateKind
+from service.scope.service import OUTSIDE as OUTSIDE_SCOPE
+from service.scope.service import UNCONFIRMED
 
 INK = (25, 32, 40)
 MUTED = (95, 104, 114)
@@ -52,6 +54,8 @@ _REPLACEMENTS = {
     "√": "sqrt",
     "Δ": "d",
     "η": "eta",
+    "ν": "nu",
+    "∞": "infinity",
     "ρ": "rho",
     "γ": "gamma",
     "₀": "0",
@@ -445,9 +449,11 @@ def _test_block(pdf: CertificatePDF, test: TestSection) -> None:
     if test.revision > 1:
         title += f" (revision {test.revision})"
     pdf.heading(f"{title}: {test.method_label}, {test.standard}", size=10)
+    scope = "" if test.in_scope else f" ({OUTSIDE_SCOPE})"
     rows = [
         ("Method", test.method_label),
-        ("Standard", test.standard),
+        ("Standard", test.standard + scope),
+        ("Rules applied", test.rules_words),
         ("Permeant", test.permeant),
         (
             "Reference temperature",
@@ -507,7 +513,8 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     if test.expanded_u_m_per_s is not None and test.expanded_u_rel is not None:
         u_text = (
             f"+/- {format_k(test.expanded_u_m_per_s)} m/s "
-            f"({test.expanded_u_rel * 100:.1f} %, coverage factor k = 2, about 95 %)"
+            f"({test.expanded_u_rel * 100:.1f} %, about 95 %; coverage factor {test.coverage}, "
+            "ν_eff the effective degrees of freedom, Welch-Satterthwaite)"
         )
     reference = f"{test.reference_temperature_c:g}"
     pdf.set_fill_color(*SHADE)
@@ -554,13 +561,12 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.set_text_color(*COMPLIANCE_COLOURS.get(test.compliance, INK))
     pdf.multi_cell(92, 4.4, latin1(test.compliance_text), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     pdf.set_text_color(*INK)
-    if test.compliance != "no_limit" and test.expanded_u_m_per_s is not None:
+    if test.compliance != "no_limit":
         pdf.set_font("Helvetica", "", 7)
         pdf.multi_cell(
             92,
             3.4,
-            "Decision rule: the measured k20 is compared with the limit (simple acceptance); "
-            "the uncertainty is stated, not deducted.",
+            latin1(f"Decision rule: {test.decision_rule}."),
             new_x=XPos.LMARGIN,
             new_y=YPos.NEXT,
         )
@@ -571,11 +577,14 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
     rows = []
     colours = []
     for check in test.checks:
-        rows.append([check.label, STATUS_TEXT.get(check.status, check.status), check.message])
+        label = f"{check.label} [1]" if check.confirmed is False else check.label
+        rows.append([label, STATUS_TEXT.get(check.status, check.status), check.message])
         colours.append([None, STATUS_COLOURS.get(check.status), None])
     pdf.table_rows(
         ["Check", "Status", "Finding"], rows, [40, 16, 124], colours=colours, font_size=7.4
     )
+    if any(check.confirmed is False for check in test.checks):
+        pdf.paragraph(f"[1] {UNCONFIRMED}.", size=7)
     pdf.set_font("Helvetica", "B", 8.5)
     pdf.cell(0, 5, "Deviations from the standard", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     if test.deviations:
@@ -626,6 +635,7 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
             verdict = {
                 "complies": "complies",
                 "does_not_comply": "does not comply",
+                "undecided": "not decidable",
                 "no_limit": "no limit",
             }[test.compliance]
             rows.append(
@@ -635,7 +645,7 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
                     sample.location.split(" (")[0],
                     sample.depth,
                     test.method_label,
-                    test.standard,
+                    test.standard + ("" if test.in_scope else " *"),
                     format_k(test.k_ref_m_per_s),
                     u,
                     verdict,
@@ -666,6 +676,21 @@ def _project_table(pdf: CertificatePDF, doc: CertificateDocument) -> None:
         font_size=7,
         colours=colours,
     )
+    notes = [
+        "U: expanded uncertainty, about 95 % coverage; coverage factors: "
+        + "; ".join(
+            f"{sample.lab_id} test {test.series}: {test.coverage or 'no uncertainty stated'}"
+            for sample in doc.samples
+            for test in sample.tests
+        )
+        + "."
+    ]
+    if any(not test.in_scope for test in doc.tests):
+        notes.append(f"* {OUTSIDE_SCOPE.capitalize()} of the laboratory.")
+    decision_rules = sorted({t.decision_rule for t in doc.tests if t.compliance != "no_limit"})
+    notes += [f"Decision rule: {rule}." for rule in decision_rules]
+    for note in notes:
+        pdf.paragraph(latin1(note), size=7)
     if points:
         pdf.ensure_space(70)
         top = pdf.get_y() + 2

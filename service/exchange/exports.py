@@ -79,10 +79,12 @@ EXPORT_COLUMNS: tuple[Column, ...] = (
     Column("trials_used", "", "determinations that make up k_ref", True),
     Column("k_test_temperature", "m/s", "mean k at test temperature of those used", True),
     Column("k_ref", "m/s", "hydraulic conductivity at the reference temperature", True),
-    Column("expanded_uncertainty", "m/s", "U of k_ref, coverage factor 2", True),
+    Column(
+        "expanded_uncertainty", "m/s", "U of k_ref, about 95 % (Student t coverage factor)", True
+    ),
     Column("expanded_uncertainty_rel", "%", "U of k_ref relative to k_ref", True),
     Column("spec_k_max", "m/s", "specification limit on k_ref", True),
-    Column("compliance", "", "complies, does_not_comply or no_limit"),
+    Column("compliance", "", "complies, does_not_comply, undecided or no_limit"),
     Column("checks_failed", "", "ids of failed checks, separated by ';'"),
     Column("checks_warned", "", "ids of checks with a warning, separated by ';'"),
     Column("engine_version", "", "reduction engine version that made the result"),

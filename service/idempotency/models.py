@@ -7,8 +7,7 @@ from typing import Any
 
 from sqlmodel import Field, SQLModel
 
-from service.common import created_at_field
-from service.db import JSONType
+from service.common import created_at_field, json_field
 
 
 class IdempotencyRecord(SQLModel, table=True):
@@ -17,8 +16,5 @@ class IdempotencyRecord(SQLModel, table=True):
     user_id: int = Field(foreign_key="app_user.id", index=True)
     request_hash: str = Field(max_length=64)
     status_code: int
-    # What replay needs: the record the first request created (a trial), or, where the
-    # answer is not rebuilt from one, the answer itself (a batch of samples).
-    resource_id: int | None = None
-    response: dict[str, Any] | None = Field(default=None, sa_type=JSONType)
+    response: dict[str, Any] = json_field()
     created_at: datetime = created_at_field()

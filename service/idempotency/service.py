@@ -71,17 +71,14 @@ def remember(
     user_id: int,
     request_hash: str,
     status_code: int,
-    resource_id: int | None = None,
-    response: dict[str, Any] | None = None,
+    response: dict[str, Any],
 ) -> IdempotencyRecord:
-    """Store what replaying the first request with this key needs: its status and the
-    record it created (`resource_id`, the answer rebuilt from it), or its whole answer."""
+    """Store the answer given to the first request with this key."""
     record = IdempotencyRecord(
         key=_stored_key(scope, key),
         user_id=user_id,
         request_hash=request_hash,
         status_code=status_code,
-        resource_id=resource_id,
         response=response,
     )
     session.add(record)

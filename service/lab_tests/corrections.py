@@ -172,7 +172,9 @@ def recompute(session: Session, test_id: int, *, actor: User) -> RecomputeRead:
     test = get_test(session, test_id, actor=actor)
     if test.result is None:
         raise wrong_state(test, "recompute the stored result of")
-    reduced = reduction.reduce_stored(session, test, defaults=test.default_uncertainties)
+    reduced = reduction.reduce_stored(
+        session, test, defaults=test.default_uncertainties, scope_version=test.scope_version
+    )
     fresh_hash = reduced.input_hash
     fresh = reduced.result
     if fresh is None:

@@ -38,6 +38,7 @@ from service.lab_tests.schemas import SendBackRequest, SignOffRequest, TestCreat
 from service.projects.models import Project
 from service.quantities import CONDUCTIVITY, DENSITY, PRESSURE, typed
 from service.samples.models import Sample
+from service.scope import service as scope
 from service.signoffs import service as signoffs
 
 PRESSURES = ("cell_pressure", "back_pressure", "effective_confining")
@@ -183,7 +184,8 @@ def request_test(
     session: Session, sample_id: int, data: TestCreate, *, actor: User
 ) -> PermeabilityTest:
     """Request a permeability test on a sample; the project's specification limit applies
-    unless overridden; the due date is the sample's."""
+    unless overridden; the due date is the sample's; the reference temperature, unless
+    given, is the one the laboratory's scope sets for the standard."""
     sample = get_visible(session, Sample, sample_id, actor, "sample")
     if not may_request_tests(actor):
         raise PermissionDenied("requesting a test needs a lab manager, reviewer or admin")
@@ -203,6 +205,12 @@ def request_test(
     fields["spec_k_max"] = data.spec_k_max  # None: inherit from the project
     if fields.get("permeant") is None:
         fields.pop("permeant")
+    if "reference_temperature_c" not in data.model_fields_set and (
+        data.temperature_correction != "astm_d5084"
+    ):
+        scope_default = scope.default_reference_temperature(session, data.standard)
+        if scope_default is not None:
+            fields["reference_temperature_c"] = scope_default
     for name, value in _test_columns(session, test, fields).items():
         setattr(test, name, value)
     session.add(test)
@@ -333,6 +341,7 @@ def submit_test(
             "result": reduced.result,
             "result_k_ref_m_per_s": reduced.result["result"]["k_ref_m_per_s"],
             "engine_version": reduced.result["engine_version"],
+            "scope_version": reduced.scope_version,
             "input_hash": reduced.input_hash,
             "default_uncertainties": reduced.defaults,
         },

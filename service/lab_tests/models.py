@@ -93,6 +93,9 @@ class PermeabilityTest(SQLModel, table=True):
     result: dict[str, Any] | None = Field(default=None, sa_type=JSONType)
     result_k_ref_m_per_s: float | None = None
     engine_version: str = Field(default="", max_length=20)
+    # The version of the laboratory's scope the stored result was judged by (None: the
+    # engine's built-in rules); a later change of the scope does not touch this result.
+    scope_version: int | None = None
     input_hash: str = Field(default="", max_length=64)
     sent_back_reason: str = Field(default="", max_length=1000)
     due_date: date | None = None

@@ -31,10 +31,11 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
-from service.lab_tests.reduction import Reduction, StoredRequest, reduce_request, stored_request
+from service.lab_tests.reduction import KeptRequest, Reduction, reduce_request, stored_request
+from service.scope.models import ScopeVersion
 
 _KEPT_TESTS = 512
-_kept: dict[int, tuple[tuple[Any, ...], StoredRequest]] = {}
+_kept: dict[int, tuple[tuple[Any, ...], KeptRequest]] = {}
 _kept_lock = threading.Lock()
 
 
@@ -60,6 +61,8 @@ def _stamp_columns() -> list[Any]:
         *_of(SaturationStep, func.count(), func.max(col(SaturationStep.id))),
         *_of(TestApparatus, func.count()),
         apparatus,
+        # The lab's scope: a new version changes the rules a preview judges by.
+        select(func.max(col(ScopeVersion.number))).scalar_subquery(),
     ]
 
 
@@ -68,7 +71,7 @@ class PreviewInputs:
     """A test, its stored inputs and their stamp, ready for a trial being typed."""
 
     test: PermeabilityTest
-    stored: StoredRequest
+    stored: KeptRequest
     stamp: tuple[Any, ...]
     next_seq: int
 
@@ -110,7 +113,7 @@ def inputs_of(session: Session, test_id: int) -> PreviewInputs | None:
     if kept is not None and kept[0] == stamp:
         stored = kept[1]
     else:
-        stored = stored_request(session, test)
+        stored = KeptRequest.of(stored_request(session, test))
         with _kept_lock:
             if len(_kept) >= _KEPT_TESTS:
                 _kept.clear()

@@ -223,7 +223,7 @@ def add_saturation_step(
             session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
         )
         if replay is not None:
-            found = replay.resource_id
+            found = replay.response.get("saturation_step_id")
             stored = session.get(SaturationStep, found) if found is not None else None
             if stored is None:
                 raise Conflict(f"the step first written with this {idempotency.HEADER} is gone")
@@ -251,7 +251,7 @@ def add_saturation_step(
             user_id=actor.id,
             request_hash=request_hash,
             status_code=201,
-            resource_id=step.id,
+            response={"saturation_step_id": step.id},
         )
     return step
 
@@ -376,17 +376,6 @@ def prepare_trial(session: Session, test_id: int, data: TrialCreate) -> Prepared
     return PreparedTrial(data, entries, inputs.stamp, inputs.reduce(entries))
 
 
-def _replay(session: Session, test: PermeabilityTest, trial_id: int | None) -> TrialWritten:
-    """The answer to a retried trial write: the trial stored by the first, with the test's
-    reduction as it stands (the same as the first answer unless the test changed since)."""
-    trial = session.get(Trial, trial_id) if trial_id is not None else None
-    if trial is None or trial.id is None:
-        raise Conflict(f"the trial first written with this {idempotency.HEADER} is gone")
-    reduced = reduction.reduce_stored(session, test)
-    readings = readings_of(session, [trial.id])[trial.id]
-    return _written(test, trial, readings, reduced, reduced.problems)
-
-
 def record_trial(
     session: Session,
     test_id: int,
@@ -398,7 +387,7 @@ def record_trial(
 ) -> TrialWritten:
     """Store one trial exactly as typed and answer it with the live reduction.
 
-    A retry with the same `idempotency_key` and body gets the trial it stored again and
+    A retry with the same `idempotency_key` and body gets the first answer again and
     stores nothing; the same key with another body is a 409. A trial the engine refuses is
     a 422 naming the field (at the trial's own fields, labelled with its number), and
     nothing is stored. A stale `based_on_version` is a 409 (`require_based_on`), checked
@@ -418,7 +407,7 @@ def record_trial(
         session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
     )
     if replay is not None:
-        return _replay(session, test, replay.resource_id)
+        return TrialWritten.model_validate(replay.response)
     require_based_on(test, based_on_version, entries)
     require(test, actor, Action.RECORD)
     if trial_with_key(session, test.id, key) is not None:
@@ -443,6 +432,9 @@ def record_trial(
     session.flush()
     record_created(session, trial, actor_id=actor.id)
     readings = _store_readings(session, trial, rows, new=True)
+    written = _written(test, trial, readings, checked.reduced, checked.pending)
+    # The answer itself is kept: a retry must get the first answer, not the trial as it
+    # stands (a partner's edit since would show a newer version).
     idempotency.remember(
         session,
         scope=scope,
@@ -450,9 +442,9 @@ def record_trial(
         user_id=actor.id,
         request_hash=request_hash,
         status_code=201,
-        resource_id=trial.id,
+        response=written.model_dump(mode="json"),
     )
-    return _written(test, trial, readings, checked.reduced, checked.pending)
+    return written
 
 
 def _get_trial(session: Session, test: PermeabilityTest, trial_id: int) -> Trial:

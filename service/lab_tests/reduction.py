@@ -10,7 +10,9 @@ the rest of the service needs from the engine it gets here:
   trial, or with one unsaved trial (the live preview); nothing is stored;
 - :func:`stored_request` builds a stored test's request and input hash without reducing;
 - :func:`default_uncertainties` turns the register's resolutions into standard
-  uncertainties.
+  uncertainties;
+- :func:`rule_book` builds the engine's rules from the laboratory's accredited scope (a
+  version's snapshot), :func:`built_in_rules` lists the rules the scope page confirms.
 
 Each returns a :class:`Reduction`: the request, the engine's result or its refusals named
 by label and trial number ("Trial 3 · Head at end"), and the SI figure of every quantity it
@@ -22,8 +24,9 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 from sqlmodel import Session, col, select
@@ -31,8 +34,10 @@ from sqlmodel import Session, col, select
 from service.apparatus.models import Apparatus
 from service.common import ApparatusKind
 from service.engine import (
+    BUILT_IN,
     ENGINE_VERSION,
     EngineInputError,
+    RuleBook,
     catalogue,
     read_request,
     reduce,
@@ -44,6 +49,7 @@ from service.engine.checks import Check
 from service.engine.errors import InputProblem
 from service.engine.model import Flow, GradientSeries, SpecimenResult, TrialResult
 from service.engine.reductions import fit_log_head
+from service.engine.rules import DECISION_RULES, GUARD_BAND, STANDARDS
 from service.engine.uncertainty import standard_uncertainty_from_resolution
 from service.errors import PARAMETER_PLACES, FieldProblem, Loc, field_label
 from service.lab_tests.models import (
@@ -53,15 +59,20 @@ from service.lab_tests.models import (
     TestApparatus,
     Trial,
 )
+from service.scope.models import ScopeVersion
 
 __all__ = [
+    "CURRENT",
+    "DECISION_RULES",
     "ENGINE_VERSION",
     "PERMEAMETERS",
     "SERIES_WATER_DENSITY_KG_PER_M3",
+    "STANDARDS",
     "Check",
     "Entry",
     "Flow",
     "GradientSeries",
+    "KeptRequest",
     "Method",
     "Need",
     "Reduction",
@@ -74,7 +85,10 @@ __all__ = [
     "TrialResult",
     "accepted_of",
     "analyse_series",
+    "built_in_rules",
     "catalogue",
+    "coverage_words",
+    "decision_rule_words",
     "default_uncertainties",
     "fit_log_head",
     "input_hash",
@@ -83,6 +97,7 @@ __all__ = [
     "reduce_payload",
     "reduce_request",
     "reduce_stored",
+    "rule_book",
     "saturation_of",
     "stored_request",
     "trial_notes",
@@ -107,6 +122,7 @@ REGISTER_GEOMETRY = {
     "manometer_spacing": "port_spacing_text",
 }
 UNSAVED = "new"  # the key of the trial being typed, where saved trials have their id
+CURRENT = "current"  # reduce under the laboratory's scope as it stands now
 
 
 @dataclass(frozen=True)
@@ -138,6 +154,7 @@ class Reduction:
     values: Mapping[Loc, float]
     keys: tuple[Any, ...] = ()
     numbers: tuple[int, ...] = ()
+    scope_version: int | None = None
 
     @property
     def ok(self) -> bool:
@@ -235,15 +252,17 @@ def _reduced(
     defaults: Mapping[str, str] | None,
     keys: Sequence[Any] = (),
     numbers: Sequence[int] | None = None,
+    rules: tuple[RuleBook, int | None] = (BUILT_IN, None),
 ) -> Reduction:
-    """Read and reduce; an impossible test the reader let through (say a k that is not a
-    finite positive number) is refused like any other entry."""
+    """Read and reduce under ``rules`` (a book and the scope version it was built from); an
+    impossible test the reader let through (say a k that is not a finite positive number) is
+    refused like any other entry."""
     read = read_request(request, defaults)
     result = None
     problems = read.problems
     if read.input is not None:
         try:
-            result = result_to_dict(reduce(read.input))
+            result = for_users(result_to_dict(reduce(read.input, rules[0])))
         except EngineInputError as exc:
             problems = exc.problems
     return Reduction(
@@ -254,7 +273,178 @@ def _reduced(
         values=read.values,
         keys=tuple(keys),
         numbers=tuple(numbers or ()),
+        scope_version=rules[1],
     )
+
+
+# --- the laboratory's rules -------------------------------------------------------------------
+
+# Notes on how a limit is known belong in docs/methods.md and the code, never in a text a
+# user reads; should one reach a check's message or source it is taken out here.
+_INTERNAL_NOTES = re.compile(
+    r"\s*(\[from memory[^\]]*\]|\((?:common practice, )?no source\)|\(read\)|"
+    r"\(from memory[^)]*\)|\(common practice\))",
+    re.IGNORECASE,
+)
+
+
+def for_users(result: dict[str, Any]) -> dict[str, Any]:
+    """The engine's result with every check's message and source free of internal notes."""
+    for check in result.get("checks", []):
+        for key in ("message", "source"):
+            if isinstance(check.get(key), str):
+                check[key] = _INTERNAL_NOTES.sub("", check[key])
+    return result
+
+
+@dataclass(frozen=True)
+class LimitInfo:
+    """One limit of a built-in rule, for the scope page (never how it is known)."""
+
+    id: str
+    label: str
+    unit: str
+    value: float
+
+
+@dataclass(frozen=True)
+class RuleInfo:
+    """One built-in rule of a standard: the check it drives, its source and its limits."""
+
+    id: str
+    source: str
+    limits: tuple[LimitInfo, ...]
+
+
+@dataclass(frozen=True)
+class StandardRules:
+    """A standard's built-in defaults and rules, as the scope page offers them to confirm."""
+
+    standard: str
+    reference_temperature_c: float
+    decision_rule: str
+    determinations: int
+    rules: tuple[RuleInfo, ...]
+
+
+def built_in_rules() -> tuple[StandardRules, ...]:
+    """The engine's own defaults and rules of each standard, in the catalogue's order."""
+    out = []
+    for standard in STANDARDS:
+        rule_set = BUILT_IN.for_standard(standard)
+        out.append(
+            StandardRules(
+                standard=standard,
+                reference_temperature_c=rule_set.reference_temperature_c,
+                decision_rule=rule_set.decision_rule,
+                determinations=rule_set.determinations,
+                rules=tuple(
+                    RuleInfo(
+                        rule.id,
+                        rule.source,
+                        tuple(LimitInfo(i.id, i.label, i.unit, i.value) for i in rule.limits),
+                    )
+                    for rule in sorted(rule_set.rules.values(), key=lambda r: r.id)
+                ),
+            )
+        )
+    return tuple(out)
+
+
+def rule_book(snapshot: Mapping[str, Any] | None, number: int | None) -> RuleBook:
+    """The engine's rules under a version of the laboratory's scope (its ``snapshot``).
+
+    A standard's defaults (edition, reference temperature, decision rule, number of
+    determinations) replace the built-in ones; a confirmed rule takes the laboratory's limit
+    values and its source becomes the edition and clause as the laboratory reads them. No
+    scope yet (``number`` None): the engine's built-in book.
+    """
+    if snapshot is None or number is None:
+        return BUILT_IN
+    version = f"laboratory scope {number}"
+    book = RuleBook(version=version, sets=dict(BUILT_IN.sets))
+    for standard, info in snapshot.get("standards", {}).items():
+        if standard not in book.sets:
+            continue
+        changes: dict[str, Any] = {"edition": info.get("edition") or None}
+        if info.get("reference_temperature_c") is not None:
+            changes["reference_temperature_c"] = float(info["reference_temperature_c"])
+        if info.get("decision_rule") in DECISION_RULES:
+            changes["decision_rule"] = info["decision_rule"]
+        if info.get("determinations"):
+            changes["determinations"] = int(info["determinations"])
+        book = book.with_set(replace(book.sets[standard], **changes), version=version)
+    for standard, rules in snapshot.get("rules", {}).items():
+        rule_set = book.sets.get(standard)
+        for rule_id, info in rules.items():
+            if rule_set is None or rule_id not in rule_set.rules or not info.get("confirmed"):
+                continue
+            known = {item.id for item in rule_set.rules[rule_id].limits}
+            for limit_id, value in (info.get("limits") or {}).items():
+                if limit_id in known and value is not None:
+                    book = book.with_limit(
+                        standard, rule_id, limit_id, float(value), version=version
+                    )
+            book = book.confirmed(standard, rule_id, _lab_source(standard, info), version=version)
+            rule_set = book.sets[standard]
+    return book
+
+
+def _lab_source(standard: str, info: Mapping[str, Any]) -> str:
+    edition = str(info.get("edition") or "").strip()
+    clause = str(info.get("clause") or "").strip()
+    named = (
+        f"{standard}:{edition}"
+        if edition and not edition.startswith(standard)
+        else (edition or standard)
+    )
+    return f"{named}, {clause}" if clause else named
+
+
+def scope_rules(
+    session: Session | None, version: int | str | None = CURRENT
+) -> tuple[RuleBook, int | None]:
+    """(the rule book, its scope version number): the scope as it stands (``CURRENT``), a
+    given version, or the built-in rules (None, or no session)."""
+    if session is None or version is None:
+        return BUILT_IN, None
+    query = select(ScopeVersion)
+    if version == CURRENT:
+        query = query.order_by(col(ScopeVersion.number).desc()).limit(1)
+    else:
+        query = query.where(ScopeVersion.number == version)
+    found = session.exec(query).first()
+    if found is None:
+        return BUILT_IN, None
+    return rule_book(found.snapshot, found.number), found.number
+
+
+# --- the engine's figures in words ------------------------------------------------------------
+
+DECISION_RULE_WORDS = {
+    "simple": "simple acceptance (ILAC-G8:09/2019, guard band w = 0): the result complies "
+    "when k is at or below the limit",
+    GUARD_BAND: "guarded acceptance (ILAC-G8:09/2019, guard band w = U): the result complies "
+    "when k + U is at or below the limit and fails when k − U is above it",
+}
+
+
+def decision_rule_words(result: Mapping[str, Any] | None) -> str:
+    """The decision rule a result was judged by, in words (simple acceptance by default)."""
+    rule = ((result or {}).get("result") or {}).get("decision_rule") or "simple"
+    return DECISION_RULE_WORDS.get(str(rule), str(rule))
+
+
+def coverage_words(result: Mapping[str, Any] | None) -> str:
+    """The coverage factor and its effective degrees of freedom as the engine returned them:
+    "k = 2.87, ν_eff = 3.0"; "" when the result states no uncertainty."""
+    summary = (result or {}).get("result") or {}
+    factor = summary.get("coverage_factor")
+    if factor is None:
+        return ""
+    nu = summary.get("effective_degrees_of_freedom")
+    freedom = "ν_eff = ∞" if nu is None else f"ν_eff = {nu:.1f}"
+    return f"k = {factor:.2f}, {freedom}"
 
 
 def reduce_payload(
@@ -262,15 +452,17 @@ def reduce_payload(
     *,
     defaults: Mapping[str, str] | None = None,
     numbers: Sequence[int] | None = None,
+    session: Session | None = None,
 ) -> Reduction:
     """Reduce a contract-shaped request (the stateless endpoint, the bench); stores nothing.
 
     Trials are keyed by position and numbered from one ("Trial 1"), or by `numbers` (the
-    bench's rows)."""
+    bench's rows). With a `session`, under the laboratory's scope as it stands."""
     request = dict(payload)
     trials = request.get("trials")
     count = len(trials) if isinstance(trials, list) else 0
-    return _reduced(request, defaults, keys=range(count), numbers=numbers)
+    rules = scope_rules(session)
+    return _reduced(request, defaults, keys=range(count), numbers=numbers, rules=rules)
 
 
 # --- stored tests -----------------------------------------------------------------------------
@@ -380,6 +572,8 @@ class StoredRequest:
     request: dict[str, Any]
     defaults: dict[str, str]
     included: list[Trial] = field(default_factory=list)
+    # The rule book to judge it by and the scope version it was built from.
+    rules: tuple[RuleBook, int | None] = (BUILT_IN, None)
 
     @property
     def input_hash(self) -> str:
@@ -397,10 +591,12 @@ def stored_request(
     specimen: Specimen | None = None,
     trials: Sequence[Trial] | None = None,
     defaults: Mapping[str, str] | None = None,
+    scope_version: int | str | None = CURRENT,
 ) -> StoredRequest:
     """The request of a stored test as it stands; `specimen` and `trials` replace the stored
     ones (a candidate being checked), `defaults` the register's uncertainties (a submitted
-    test keeps the ones it was reduced with)."""
+    test keeps the ones it was reduced with), with the rules of the laboratory's scope
+    (`scope_version`: the current one, a given version, or None for the built-in rules)."""
     assert test.id is not None
     apparatus = list(
         session.exec(
@@ -424,6 +620,7 @@ def stored_request(
         request=request,
         defaults=default_uncertainties(apparatus) if defaults is None else dict(defaults),
         included=included(rows),
+        rules=scope_rules(session, scope_version),
     )
 
 
@@ -435,6 +632,7 @@ def reduce_stored(
     trials: Sequence[Trial] | None = None,
     unsaved: Mapping[str, Any] | None = None,
     defaults: Mapping[str, str] | None = None,
+    scope_version: int | str | None = CURRENT,
 ) -> Reduction:
     """Reduce a stored test as it stands; nothing is stored.
 
@@ -450,13 +648,18 @@ def reduce_stored(
         The entries of one more trial being typed (the live preview); its key is ``"new"``.
     defaults : mapping, optional
         The default uncertainties to apply instead of the register's.
+    scope_version : int, None or "current"
+        The version of the laboratory's scope to judge by: the current one by default, the
+        one a stored result was reduced with (its ``scope_version``; None: built-in rules).
     """
     assert test.id is not None
     rows = list(trials) if trials is not None else _rows(session, Trial, test.id)
     if unsaved:
         seq = max((t.seq for t in rows), default=0) + 1
         rows.append(Trial(test_id=test.id, seq=seq, idempotency_key="-", entries=dict(unsaved)))
-    stored = stored_request(session, test, trials=rows, defaults=defaults)
+    stored = stored_request(
+        session, test, trials=rows, defaults=defaults, scope_version=scope_version
+    )
     if specimen_changes:
         section = dict(stored.request["specimen"])
         for name, value in specimen_changes.items():
@@ -469,23 +672,45 @@ def reduce_stored(
         stored.request["specimen"] = section
     keys = [t.id if t.id is not None else UNSAVED for t in stored.included]
     numbers = [t.seq for t in stored.included]
-    return _reduced(stored.request, stored.defaults, keys, numbers)
+    return _reduced(stored.request, stored.defaults, keys, numbers, stored.rules)
+
+
+@dataclass(frozen=True)
+class KeptRequest:
+    """A stored test's request without its ORM rows (safe to keep across sessions): the
+    request, the default uncertainties, and each included trial's id and number."""
+
+    request: dict[str, Any]
+    defaults: dict[str, str]
+    keys: tuple[int, ...]
+    numbers: tuple[int, ...]
+    rules: tuple[RuleBook, int | None] = (BUILT_IN, None)
+
+    @classmethod
+    def of(cls, stored: StoredRequest) -> KeptRequest:
+        return cls(
+            request=stored.request,
+            defaults=stored.defaults,
+            keys=tuple(t.id or 0 for t in stored.included),
+            numbers=tuple(t.seq for t in stored.included),
+            rules=stored.rules,
+        )
 
 
 def reduce_request(
-    stored: StoredRequest, *, unsaved: Mapping[str, Any] | None = None, number: int = 0
+    kept: KeptRequest, *, unsaved: Mapping[str, Any] | None = None, number: int = 0
 ) -> Reduction:
-    """Reduce a stored test's request (`stored_request`), with the entries of one unsaved
-    trial added last under the key ``"new"`` and the number `number` (the live preview);
-    reads nothing, stores nothing, changes nothing in `stored`."""
-    trials = list(stored.request["trials"])
-    keys: list[Any] = [t.id for t in stored.included]
-    numbers = [t.seq for t in stored.included]
+    """Reduce a stored test's request, with the entries of one unsaved trial added last
+    under the key ``"new"`` and the number `number` (the live preview); reads nothing,
+    stores nothing, changes nothing in `kept`."""
+    trials = list(kept.request["trials"])
+    keys: list[Any] = list(kept.keys)
+    numbers = list(kept.numbers)
     if unsaved:
         trials.append(dict(unsaved))
         keys.append(UNSAVED)
         numbers.append(number)
-    return _reduced({**stored.request, "trials": trials}, stored.defaults, keys, numbers)
+    return _reduced({**kept.request, "trials": trials}, kept.defaults, keys, numbers, kept.rules)
 
 
 def check_trial(test: PermeabilityTest, entries: Mapping[str, Any], number: int) -> Reduction:

@@ -17,14 +17,7 @@ from service.accounts.models import User
 from service.audit import chain
 from service.audit.service import apply_changes, record_created
 from service.certificates.models import Certificate, CertificateTest
-from service.common import (
-    OPEN_STATES,
-    CertificateState,
-    CustodyKind,
-    Priority,
-    Role,
-    SampleType,
-)
+from service.common import CertificateState, CustodyKind, Priority, Role, SampleType
 from service.custody.service import record_custody, refuse_if_disposed
 from service.db import utcnow
 from service.errors import FieldProblem, InvalidInput, NotFound, invalid, require_version
@@ -34,6 +27,7 @@ from service.paging import Page, paginate
 from service.projects.models import Location, Project
 from service.projects.service import get_location, get_project
 from service.quantities import LENGTH, typed
+from service.queue import OPEN_STATES
 from service.samples.ids import next_lab_ids
 from service.samples.models import Sample
 from service.text import Identifier
@@ -372,7 +366,7 @@ def receive_samples_once(
         session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
     )
     if replay is not None:
-        return replay.status_code, dict(replay.response or {}), True
+        return replay.status_code, dict(replay.response), True
     samples = receive_samples(session, project_id, batch, actor=actor)
     answer = ReceivedBatch(
         project_id=project_id,

@@ -12,8 +12,9 @@ from typing import Any
 
 from fastapi import APIRouter, Request
 from fastapi.responses import Response
+from sqlmodel import Session
 
-from service.deps import LabStaff
+from service.deps import LabStaff, SessionDep
 from service.lab_tests.reduction import Scope, reduce_payload, trial_notes
 from service.web.entries import (
     METHOD_CHOICES,
@@ -162,12 +163,13 @@ def _form_name(loc: tuple[str | int, ...], rows: list[int]) -> str:
     return ".".join(str(p) for p in parts)
 
 
-def run_bench(bench: BenchForm) -> Outcome:
-    """Reduce what is typed so far; refusals are kept per field, with the text as typed."""
+def run_bench(bench: BenchForm, session: Session | None = None) -> Outcome:
+    """Reduce what is typed so far (under the laboratory's scope, given a `session`);
+    refusals are kept per field, with the text as typed."""
     payload, rows = payload_of(bench)
     if not rows:
         return Outcome(empty=True, rows=rows)
-    reduced = reduce_payload(payload, numbers=[row + 1 for row in rows])
+    reduced = reduce_payload(payload, numbers=[row + 1 for row in rows], session=session)
     if reduced.result is None:
         outcome = Outcome(rows=rows)
         visible = bench.field_names()
@@ -235,12 +237,14 @@ def bench_page(request: Request, user: LabStaff) -> Response:
 
 
 @router.post("/preview")
-def bench_preview(request: Request, user: LabStaff, form: PostedForm) -> Response:
+def bench_preview(
+    request: Request, session: SessionDep, user: LabStaff, form: PostedForm
+) -> Response:
     """Reduce the typed entries. htmx gets the result fragment (field messages out of band),
     or the whole bench when the form itself changes (method, trial rows); a browser without
     JavaScript gets the whole page. Refused entries answer 422 with everything typed kept."""
     bench = read_form(form)
-    outcome = run_bench(bench)
+    outcome = run_bench(bench, session)
     context = _context(request, user, bench, outcome)
     whole_bench = form.get("view") == "form"
     # Field messages travel out of band only when htmx swaps the result alone.

@@ -24,6 +24,7 @@ from service import __version__
 from service.config import get_settings
 from service.db import PROJECT_ROOT
 from service.web.display import install as install_display_filters
+from service.web.rules_words import install as install_rules_words
 
 
 async def posted_form(request: Request) -> FormData:
@@ -78,6 +79,7 @@ def _make_templates() -> Jinja2Templates:
     templates = Jinja2Templates(directory=PROJECT_ROOT / "templates")
     env = templates.env
     install_display_filters(env.filters)
+    install_rules_words(env.filters)
     env.globals["htmx_script"] = HTMX_SCRIPT
     env.globals["app_version"] = __version__
     env.globals["lab_name"] = get_settings().lab_name

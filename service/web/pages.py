@@ -48,6 +48,7 @@ NAV: dict[str, list[tuple[str, str]]] = {
         ("/reception", "Receive"),
         ("/projects", "Projects"),
         ("/apparatus", "Apparatus"),
+        ("/scope", "Scope"),
         ("/bench", "Bench"),
     ],
     Role.ADMIN: [
@@ -56,6 +57,7 @@ NAV: dict[str, list[tuple[str, str]]] = {
         ("/reception", "Receive"),
         ("/projects", "Projects"),
         ("/apparatus", "Apparatus"),
+        ("/scope", "Scope"),
     ],
     Role.CLIENT: [("/", "My projects")],
 }

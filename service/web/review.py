@@ -25,6 +25,7 @@ from service.lab_tests.reduction import reduce_stored, trial_notes
 from service.lab_tests.schemas import CorrectionRequest, SendBackRequest, SignOffRequest
 from service.projects.models import Project
 from service.samples.models import Sample
+from service.scope.service import scope_of_test
 from service.signoffs.service import performer_ids
 from service.web.entries import trial_entries_text
 from service.web.htmx import PostedForm, redirect, render
@@ -236,6 +237,7 @@ def review_context(
         result=result,
         stored=stored,
         trial_rows=_trial_rows(record, result),
+        scope_status=scope_of_test(session, test, stored=stored),
         evaluated=[c for c in checks if c["status"] != "not_applicable"],
         skipped=[c for c in checks if c["status"] == "not_applicable"],
         spec_check=spec_check,

@@ -90,6 +90,11 @@ ACCESS: dict[str, Access] = {
     "GET /api/v1/apparatus/{apparatus_id}": Access(STAFF),
     "PATCH /api/v1/apparatus/{apparatus_id}": Access(MANAGERS),
     "DELETE /api/v1/apparatus/{apparatus_id}": Access(MANAGERS),
+    # the laboratory's accredited scope
+    "GET /api/v1/scope": Access(STAFF),
+    "PUT /api/v1/scope": Access(MANAGERS),
+    "GET /scope": _staff_page(MANAGERS),
+    "POST /scope": _staff_page(MANAGERS),
     # audit and custody chains
     "GET /api/v1/audit/verify": Access(STAFF),
     "GET /api/v1/audit/{entity}/{entity_id}": Access(STAFF, hidden_from_clients=True),
@@ -382,6 +387,9 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
         },
         "PATCH /api/v1/apparatus/{apparatus_id}": lambda: {
             "json": {"version": proof.fresh_version("apparatus"), "description": "checked"}
+        },
+        "PUT /api/v1/scope": lambda: {
+            "json": {"version": 0, "standards": [{"standard": "ASTM D5084", "edition": "16a"}]}
         },
         "POST /api/v1/samples/{sample_id}/custody": lambda: {
             "json": {"kind": "moved", "place": "Cold room B / 2"}

@@ -191,3 +191,23 @@ def test_compaction_points_draw_the_curve_and_can_be_removed(
     )
     assert removed.status_code == 200
     assert removed.text.count('/remove"') < page.count('/remove"')
+
+
+def test_opening_a_series_refused_keeps_what_was_typed(
+    session: Session, web_client: TestClient, world: SeriesWorld
+) -> None:
+    csrf = sign_in_cookie(session, web_client, world.technician)
+    url = f"/projects/{world.project.id}/series"
+    typed = {"name": "Borrow A", "spec_k_max": "1e-9 kg", "material": "grey CLAY"}
+    refused = web_client.post(url, data={**typed, "csrf_token": csrf["X-CSRF-Token"]}, headers=csrf)
+    assert refused.status_code == 422
+    assert 'id="err-spec_k_max"' in refused.text
+    for value in typed.values():
+        assert f'value="{value}"' in refused.text
+    open_series(web_client, csrf, world)
+    twice = web_client.post(
+        url, data={"name": "Borrow A", "csrf_token": csrf["X-CSRF-Token"]}, headers=csrf
+    )
+    assert twice.status_code == 409
+    assert "already has a compaction series named" in twice.text
+    assert session.exec(select(CompactionSeries)).one().name == "Borrow A"

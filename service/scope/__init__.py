@@ -1,0 +1,1 @@
+"""The laboratory's accredited scope: standards and editions, confirmed limits, defaults."""
