@@ -188,13 +188,48 @@ def write_specimen(session: Session, test_id: int, data: SpecimenWrite, *, actor
     return specimen
 
 
+def require_based_on(
+    test: PermeabilityTest, based_on_version: int | None, yours: dict[str, Any]
+) -> None:
+    """An entry kept on a tablet while it was offline names the test version it was typed
+    against; if the test changed since (sent back, approved, edited elsewhere) it is refused
+    with 409 and both versions, so nothing lands on a test the technician has not seen.
+    Entries sent without one (the API, a plain form post) are not checked."""
+    require_version(test, based_on_version, "test", yours=yours, required=False)
+
+
 def add_saturation_step(
-    session: Session, test_id: int, data: SaturationStepCreate, *, actor: User
+    session: Session,
+    test_id: int,
+    data: SaturationStepCreate,
+    *,
+    actor: User,
+    idempotency_key: str | None = None,
+    based_on_version: int | None = None,
 ) -> SaturationStep:
-    """Append a back-pressure step and the B-value measured after it."""
+    """Append a back-pressure step and the B-value measured after it.
+
+    With an `idempotency_key`, a retry with the same key and body finds the step the first
+    request stored and stores nothing; the same key with another body is a 409."""
     test = get_test(session, test_id, actor=actor, lock=True)
-    require(test, actor, Action.RECORD)
     assert test.id is not None
+    assert actor.id is not None
+    scope = f"saturation:{test.id}"
+    sent = data.model_dump(mode="json")
+    request_hash = idempotency.fingerprint(sent)
+    if idempotency_key is not None:
+        key = idempotency.check_key(idempotency_key)
+        replay = idempotency.find_replay(
+            session, scope=scope, key=key, user_id=actor.id, request_hash=request_hash
+        )
+        if replay is not None:
+            found = replay.response.get("saturation_step_id")
+            stored = session.get(SaturationStep, found) if found is not None else None
+            if stored is None:
+                raise Conflict(f"the step first written with this {idempotency.HEADER} is gone")
+            return stored
+    require_based_on(test, based_on_version, sent)
+    require(test, actor, Action.RECORD)
     text, pascals = typed(data.back_pressure, PRESSURE, ("back_pressure",), non_negative=True)
     steps = saturation_of(session, test.id)
     step = SaturationStep(
@@ -208,6 +243,16 @@ def add_saturation_step(
     session.add(step)
     session.flush()
     record_created(session, step, actor_id=actor.id)
+    if idempotency_key is not None:
+        idempotency.remember(
+            session,
+            scope=scope,
+            key=idempotency_key,
+            user_id=actor.id,
+            request_hash=request_hash,
+            status_code=201,
+            response={"saturation_step_id": step.id},
+        )
     return step
 
 
@@ -338,15 +383,18 @@ def record_trial(
     *,
     idempotency_key: str | None,
     actor: User,
+    based_on_version: int | None = None,
 ) -> TrialWritten:
     """Store one trial exactly as typed and answer it with the live reduction.
 
     A retry with the same `idempotency_key` and body gets the first answer again and
     stores nothing; the same key with another body is a 409. A trial the engine refuses is
     a 422 naming the field (at the trial's own fields, labelled with its number), and
-    nothing is stored. Given a `PreparedTrial`, its reduction is used when the test's
-    inputs (their stamp: the test's version and state, its trials, specimen, saturation and
-    apparatus) are still those it read; the test is locked meanwhile."""
+    nothing is stored. A stale `based_on_version` is a 409 (`require_based_on`), checked
+    after the replay so a retry of a trial that landed is answered as landed. Given a
+    `PreparedTrial`, its reduction is used when the test's inputs (their stamp: the test's
+    version and state, its trials, specimen, saturation and apparatus) are still those it
+    read; the test is locked meanwhile."""
     prepared = data if isinstance(data, PreparedTrial) else prepare_trial(session, test_id, data)
     key = idempotency.check_key(idempotency_key)
     test = get_test(session, test_id, actor=actor, lock=True)
@@ -360,6 +408,7 @@ def record_trial(
     )
     if replay is not None:
         return TrialWritten.model_validate(replay.response)
+    require_based_on(test, based_on_version, entries)
     require(test, actor, Action.RECORD)
     if trial_with_key(session, test.id, key) is not None:
         raise Conflict(

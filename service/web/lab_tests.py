@@ -57,6 +57,7 @@ from service.web.entries import (
     units_used,
 )
 from service.web.htmx import PostedForm, htmx_details, redirect, render
+from service.web.offline import KeptEntryDep
 from service.web.pages import layout_context
 from service.web.refusals import Attempt, attempt, beside, form_errors, prefixed
 
@@ -573,9 +574,14 @@ def save_conditions(
 
 @router.post("/{test_id}/saturation")
 def add_saturation(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
+    request: Request,
+    test_id: int,
+    user: CurrentUser,
+    session: SessionDep,
+    form: PostedForm,
+    kept: KeptEntryDep,
 ) -> Response:
-    """Append a back-pressure step and the B-value measured after it."""
+    """Append a back-pressure step and the B-value measured after it (once per key)."""
     forms = Forms(values=_form_values(form, "sat"))
     fields = {
         "back_pressure": posted(form, "sat.back_pressure"),
@@ -583,9 +589,45 @@ def add_saturation(
     }
     with attempt(session) as tried:
         data = SaturationStepCreate.model_validate(fields)
-        lab_tests.add_saturation_step(session, test_id, data, actor=user)
+        lab_tests.add_saturation_step(
+            session,
+            test_id,
+            data,
+            actor=user,
+            idempotency_key=kept.key,
+            based_on_version=kept.based_on_version,
+        )
+    if tried.stale is not None:
+        labels = {"back_pressure": "Back pressure", "b_value": "B-value after the step"}
+        forms.messages["saturation"] = _kept_conflict(tried.stale, labels)
+        return _section(request, session, user, test_id, "conditions", forms=forms, status_code=409)
     outcome = Outcome("saturation", "sat", "Saturation step added.", fragment="conditions")
     return _answer(request, session, user, test_id, tried, forms, outcome)
+
+
+def _kept_conflict(exc: StaleVersion, labels: Mapping[str, str]) -> dict[str, Any]:
+    """An entry typed against an older version of the test (kept on the tablet while the
+    test was sent back, approved or edited elsewhere): the entry as typed beside the test
+    as it is now. Nothing was saved; the entry stays kept on the tablet."""
+    yours, current = exc.yours, exc.current
+    rows = [
+        {"field": "State of the test", "yours": "—", "now": str(current.get("state", ""))},
+    ]
+    if current.get("sent_back_reason") and current.get("state") == "running":
+        reason = current["sent_back_reason"]
+        rows.append({"field": "Sent back because", "yours": "—", "now": reason})
+    for name, label in labels.items():
+        if name in yours:
+            rows.append({"field": label, "yours": str(yours[name] or ""), "now": "not saved"})
+    return {
+        "kind": "conflict",
+        "text": "The test changed while this entry was kept on the tablet (it was sent back, "
+        "approved or edited elsewhere), so it was not saved. It is still kept on this tablet: "
+        "compare, then send it again as a new entry or discard it.",
+        "yours_version": yours.get("version"),
+        "current_version": current.get("version"),
+        "rows": rows,
+    }
 
 
 # ---------- trials ----------
@@ -652,17 +694,34 @@ def _preview_page(
 
 @router.post("/{test_id}/trials")
 def save_trial(
-    request: Request, test_id: int, user: CurrentUser, session: SessionDep, form: PostedForm
+    request: Request,
+    test_id: int,
+    user: CurrentUser,
+    session: SessionDep,
+    form: PostedForm,
+    kept: KeptEntryDep,
 ) -> Response:
     """Record the typed trial once: the hidden Idempotency-Key of this form makes a
-    double tap or a retry store one trial."""
-    typed, entries = typed_trial(form, _test_method(session, test_id, user))
-    key = str(form.get("idempotency_key", ""))
+    double tap or a retry store one trial; a trial kept on the tablet against an older
+    version of the test is refused with both versions (409)."""
+    method = _test_method(session, test_id, user)
+    typed, entries = typed_trial(form, method)
+    key = kept.key or ""
     forms = Forms(values={**typed, "trial.idempotency_key": key})
     with attempt(session) as tried:
         data = TrialCreate.model_validate(entries)
-        written = lab_tests.record_trial(session, test_id, data, idempotency_key=key, actor=user)
-    if "idempotency_key" in tried.detail:
+        written = lab_tests.record_trial(
+            session,
+            test_id,
+            data,
+            idempotency_key=key,
+            actor=user,
+            based_on_version=kept.based_on_version,
+        )
+    if tried.stale is not None:
+        labels = {e.key: e.label for e in trial_form(method)}
+        forms.messages["trials"] = _kept_conflict(tried.stale, labels)
+    elif "idempotency_key" in tried.detail:
         forms.values["trial.idempotency_key"] = uuid.uuid4().hex
         forms.messages["trials"] = {
             "kind": "fail",

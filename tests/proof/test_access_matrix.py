@@ -68,6 +68,7 @@ ACCESS: dict[str, Access] = {
     "GET /healthz": PUBLIC,
     "GET /openapi.json": Access(SIGNED_IN),  # no /docs or /redoc (service/main.py)
     "GET /static": PUBLIC,
+    "GET /sw.js": PUBLIC,  # the service worker script (a static file served from the root)
     # accounts
     "POST /api/v1/auth/tokens": PUBLIC,
     "POST /api/v1/auth/session": PUBLIC,
