@@ -2,7 +2,7 @@
 unit registry (depths at reception, a project's limit, the register's geometry and
 resolutions, a test's conditions).
 
-This is the one module besides ``service/lab_tests/reduction.py`` that imports the engine:
+This is the one module besides ``service/lab_tests/reduction/`` that imports the engine:
 typing a quantity is needed by features that never reduce a test, and routing them through
 the lab-tests door would tie reception and the register to test recording.
 """

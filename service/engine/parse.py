@@ -9,7 +9,6 @@ catalogue labels.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Collection, Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -26,10 +25,10 @@ from service.engine.model import (
     Specimen,
     Trial,
 )
-from service.engine.phase import cylinder_area, phase_relations
-from service.engine.reductions import rising_tail_final_head
+from service.engine.phase import cylinder_area
+from service.engine.possible import check_possible
 from service.engine.rules import DECISION_RULES, PERMEAMETERS
-from service.engine.water import MAX_TEMPERATURE_C, MIN_TEMPERATURE_C, water_density
+from service.engine.water import MAX_TEMPERATURE_C, MIN_TEMPERATURE_C
 
 MAX_TRIALS = 500
 MAX_READINGS = 5000
@@ -742,7 +741,7 @@ def parse_request(
             "out_of_range",
         )
     if not reader.problems:
-        _check_possible(reader, method, spec_values, apparatus, trials, raw_trials, options)
+        check_possible(reader, method, spec_values, apparatus, trials, raw_trials, options)
     if reader.problems:
         raise EngineInputError(reader.problems)
     assert method is not None
@@ -759,60 +758,3 @@ def parse_request(
         permeameter=permeameter,
         decision_rule=decision_rule,
     )
-
-
-def _check_possible(
-    reader: _Reader,
-    method: Method | None,
-    spec_values: Mapping[str, Any],
-    apparatus: Apparatus,
-    trials: list[Trial | None],
-    raw_trials: Any,
-    options: Options,
-) -> None:
-    """Refuse inputs that describe an impossible test or specimen."""
-    if "area_m2" in spec_values:
-        rho_w = water_density(20.0, options.water_density)
-        try:
-            phase_relations(
-                area_m2=spec_values["area_m2"],
-                length_m=spec_values.get("length_m"),
-                wet_mass_kg=spec_values.get("wet_mass_kg"),
-                water_content=spec_values.get("water_content"),
-                specific_gravity=spec_values.get("specific_gravity"),
-                max_dry_density_kg_per_m3=spec_values.get("max_dry_density_kg_per_m3"),
-                void_ratio=spec_values.get("void_ratio"),
-                water_density_kg_per_m3=rho_w,
-            )
-        except ValueError as exc:
-            reader.add(
-                ("specimen", "wet_mass"),
-                None,
-                "a wet mass, size, water content and G_s that leave voids",
-                str(exc),
-                "impossible_test",
-            )
-    if method is None or method.id != "falling_head_rising_tail":
-        return
-    a_in, a_out = apparatus.headwater_area_m2, apparatus.tailwater_area_m2
-    for j, trial in enumerate(trials):
-        if trial is None or trial.readings is not None or trial.head_final_m is not None:
-            continue
-        if trial.head_initial_m is None or a_in is None or a_out is None:
-            continue
-        h2 = rising_tail_final_head(
-            trial.head_initial_m,
-            trial.inflow_volume_m3 or 0.0,
-            trial.outflow_volume_m3 or 0.0,
-            a_in,
-            a_out,
-        )
-        if not (h2 > 0.0 and math.isfinite(h2)):
-            reader.add(
-                ("trials", j, "inflow_volume"),
-                raw_trials[j].get("inflow_volume"),
-                "burette volumes that leave a positive head: V_in/a_in + V_out/a_out below "
-                "the head at start",
-                f"with outflow_volume they imply a final head of {h2 * 100:.2f} cm",
-                "impossible_test",
-            )

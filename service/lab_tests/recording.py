@@ -1,7 +1,7 @@
 """Recording at the permeameter: the specimen, saturation steps and trials, each kept exactly
 as typed beside the SI figures the engine read from it, and the live reduction they give.
 
-Each save reduces the test once, through the door (service/lab_tests/reduction.py), with
+Each save reduces the test once, through the door (service/lab_tests/reduction/), with
 the change in it: what the engine refuses in the change is a 422 naming the field and
 nothing is stored; what is still missing elsewhere is reported as pending. The SI columns
 are the engine's own reading of the typed text (units are parsed once).

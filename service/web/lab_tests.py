@@ -31,11 +31,11 @@ from service.apparatus.service import (
 from service.common import ApparatusKind, Preparation, Role
 from service.db import utcnow
 from service.deps import CurrentUser, SessionDep, reads_only
-from service.errors import FieldProblem, PermissionDenied, StaleVersion
+from service.errors import PermissionDenied, StaleVersion
 from service.figures import at_least_decimals
 from service.lab_tests import service as lab_tests
 from service.lab_tests.models import PermeabilityTest
-from service.lab_tests.reduction import Reduction, Scope, catalogue, reduce_stored, trial_notes
+from service.lab_tests.reduction import Scope, catalogue
 from service.lab_tests.schemas import (
     SaturationStepCreate,
     SignOffRequest,
@@ -57,9 +57,15 @@ from service.web.entries import (
     units_used,
 )
 from service.web.htmx import PostedForm, htmx_details, redirect, render
+from service.web.live_reduction import (
+    PageReduction,
+    page_reduction,
+    shown_reduction,
+    typed_trial,
+)
 from service.web.offline import KeptEntryDep
 from service.web.pages import layout_context
-from service.web.refusals import Attempt, attempt, beside, form_errors, prefixed
+from service.web.refusals import Attempt, attempt, prefixed
 
 router = APIRouter(prefix="/tests", include_in_schema=False)
 
@@ -126,104 +132,6 @@ def _remember(session: Session, test_id: int, user: User, form: Mapping[str, Any
     """After a save: keep the units picked for the next test on the same permeameter."""
     record = lab_tests.load_record(session, test_id, actor=user)
     remember_units(session, _permeameter_of(record), units_used(form, prefix, scope))
-
-
-# ---------- the live reduction: stored trials plus the one being typed ----------
-
-
-@dataclass
-class PageReduction:
-    """The test's reduction (optionally with the trial being typed) as the page shows it."""
-
-    result: dict[str, Any] | None = None
-    keys: list[Any] = field(default_factory=list)  # trial id per engine trial, "new" for typed
-    notes: dict[Any, list[dict[str, str]]] = field(default_factory=dict)
-    field_errors: dict[str, dict[str, str]] = field(default_factory=dict)
-    pending: list[dict[str, str]] = field(default_factory=list)
-    typed: bool = False
-
-    def trial(self, key: Any) -> dict[str, Any] | None:
-        if self.result is None or key not in self.keys:
-            return None
-        return dict(self.result["trials"][self.keys.index(key)])
-
-    @property
-    def refused(self) -> bool:
-        return any(e["kind"] != "missing" for e in self.field_errors.values())
-
-
-def page_reduction(
-    session: Session, test: PermeabilityTest, entries: Mapping[str, Any] | None = None
-) -> PageReduction:
-    """The reduction of the stored entries plus `entries` (the trial being typed), through
-    the door exactly as a save would run it; nothing is stored."""
-    return shown_reduction(reduce_stored(session, test, unsaved=entries or None), entries)
-
-
-def shown_reduction(reduced: Reduction, entries: Mapping[str, Any] | None) -> PageReduction:
-    """A reduction (with `entries`, the trial being typed, under the key "new") as the page
-    shows it."""
-    outcome = PageReduction(keys=list(reduced.keys), typed=bool(entries))
-    if reduced.result is None:
-        own, others = reduced.split("new") if entries else ([], list(reduced.problems))
-        outcome.field_errors, _ = form_errors([p for p in own if p.loc], prefixed("trial"))
-        outcome.pending = [
-            {
-                "field": p.name,
-                "msg": beside(p),
-                "kind": "missing" if p.kind == "missing" else "refused",
-            }
-            for p in [*(p for p in own if not p.loc), *others]
-            if p.loc != ("trials",) or entries
-        ]
-        return outcome
-    outcome.result = reduced.result
-    outcome.notes = dict(trial_notes(reduced.result, outcome.keys))
-    reference = f"{reduced.result['reference_temperature_c']:g} °C"
-    included = reduced.request["trials"]
-    for key, typed in zip(outcome.keys, included, strict=True):
-        if "temperature" not in typed:
-            outcome.notes.setdefault(key, []).append(
-                {"status": "warn", "text": f"No temperature: k is not corrected to {reference}."}
-            )
-    return outcome
-
-
-def _kind(problem: FieldProblem) -> str:
-    return "missing" if problem.kind == "missing" else "refused"
-
-
-def typed_trial(form: Mapping[str, Any], method: str) -> tuple[dict[str, str], dict[str, Any]]:
-    """(every trial field as typed, keyed by form name; the entries to send)."""
-    typed: dict[str, str] = {}
-    entries: dict[str, Any] = {}
-    for entry in trial_form(method):
-        name = f"trial.{entry.key}"
-        typed.update(_as_typed(form, name))
-        if text := posted(form, name):
-            entries[entry.key] = text
-    if takes_readings(method):
-        readings = []
-        for row in range(READING_ROWS):
-            reading = {}
-            for part in ("time", "head"):
-                name = f"trial.readings.{row}.{part}"
-                typed.update(_as_typed(form, name))
-                if text := posted(form, name):
-                    reading[part] = text
-            if reading:
-                readings.append(reading)
-        if readings:
-            entries["readings"] = readings
-    return typed, entries
-
-
-def _as_typed(form: Mapping[str, Any], name: str) -> dict[str, str]:
-    """A number field and its unit picker as posted, to show again exactly as typed."""
-    shown = {name: str(form.get(name, ""))}
-    if name + ".unit" in form:
-        shown[name + ".unit"] = str(form.get(name + ".unit", ""))
-    return shown
 
 
 # ---------- page context ----------
@@ -692,6 +600,17 @@ def _preview_page(
     return render(request, PAGE, context, fragment="tests/_preview.html", status_code=status)
 
 
+def _key_reused(forms: Forms) -> None:
+    """The form's key already saved another trial: a fresh key, and say so."""
+    forms.values["trial.idempotency_key"] = uuid.uuid4().hex
+    forms.messages["trials"] = {
+        "kind": "fail",
+        "text": "This form was already used to save a different trial (see the saved "
+        "trials below). Nothing new was saved; if this is another trial, tap Save trial "
+        "again.",
+    }
+
+
 @router.post("/{test_id}/trials")
 def save_trial(
     request: Request,
@@ -722,13 +641,7 @@ def save_trial(
         labels = {e.key: e.label for e in trial_form(method)}
         forms.messages["trials"] = _kept_conflict(tried.stale, labels)
     elif "idempotency_key" in tried.detail:
-        forms.values["trial.idempotency_key"] = uuid.uuid4().hex
-        forms.messages["trials"] = {
-            "kind": "fail",
-            "text": "This form was already used to save a different trial (see the saved "
-            "trials below). Nothing new was saved; if this is another trial, tap Save trial "
-            "again.",
-        }
+        _key_reused(forms)
     else:
         saved = f"Trial {written.trial.seq} saved." if not tried.refused else ""
         forms = _settle(forms, tried, "trials", "trial", saved)

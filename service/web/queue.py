@@ -466,20 +466,11 @@ def assign(
         lab_tests.update_test(session, test_id, data, actor=user)
     if tried.refused:
         test = lab_tests.get_test(session, test_id, actor=user)
-        stale = None
-        if tried.stale is not None:
-            stale = _stale_assignment(session, test, data)
+        stale = _stale_assignment(session, test, data) if tried.stale is not None else None
         errors, _ = tried.fields(lambda loc: str(loc[0]) if loc else None)
         return _assign_answer(
-            request,
-            session,
-            user,
-            test_id,
-            form,
-            status_code=tried.status,
-            errors=errors,
-            message=tried.message,
-            stale=stale,
-        )
+            request, session, user, test_id, form, status_code=tried.status, errors=errors,
+            message=tried.message, stale=stale,
+        )  # fmt: skip
     joiner = "&" if "?" in form.next_url else "?"
     return redirect(request, f"{form.next_url}{joiner}assigned={test_id}")

@@ -320,6 +320,23 @@ def save_stage(
     )
 
 
+def _logger_upload(upload: Any) -> tuple[bytes, str]:
+    """The posted logger file's bytes and name (refused when missing or over the limit)."""
+    if not isinstance(upload, UploadFile) or not upload.filename:
+        raise invalid(("file",), "is missing", accepted="a CSV or XLSX logger file")
+    try:
+        data = upload.file.read(loggers.LOGGER_LIMIT + 1)
+    finally:
+        upload.file.close()
+    if len(data) > loggers.LOGGER_LIMIT:
+        raise invalid(
+            ("file",),
+            f"is larger than {loggers.LOGGER_LIMIT // 1024} KiB",
+            accepted=f"a file of at most {loggers.LOGGER_LIMIT // 1024} KiB",
+        )
+    return data, upload.filename
+
+
 @router.post("/{test_id}/stages/{stage}/logger")
 def import_logger_file(
     request: Request,
@@ -333,21 +350,9 @@ def import_logger_file(
     refused cell listed by row and column, nothing stored until the file is clean."""
     if stage not in loggers.CHANNELS:
         raise NotFound(f"no logger stage {stage!r} (stages: {', '.join(loggers.CHANNELS)})")
-    upload = form.get("file")
     with attempt(session) as tried:
-        if not isinstance(upload, UploadFile) or not upload.filename:
-            raise invalid(("file",), "is missing", accepted="a CSV or XLSX logger file")
-        try:
-            data = upload.file.read(loggers.LOGGER_LIMIT + 1)
-        finally:
-            upload.file.close()
-        if len(data) > loggers.LOGGER_LIMIT:
-            raise invalid(
-                ("file",),
-                f"is larger than {loggers.LOGGER_LIMIT // 1024} KiB",
-                accepted=f"a file of at most {loggers.LOGGER_LIMIT // 1024} KiB",
-            )
-        table = read_table(data, upload.filename, field="file")
+        data, filename = _logger_upload(form.get("file"))
+        table = read_table(data, filename, field="file")
         loggers.import_readings(session, test_id, stage, table, actor=user)
     if not tried.refused:
         return redirect(request, f"/tests/{test_id}/stages/{stage}?saved=1")
