@@ -520,7 +520,7 @@ def _stages_block(pdf: CertificatePDF, test: TestSection) -> None:
     pdf.cell(0, 5, "Stages of the flexible-wall test", new_x=XPos.LMARGIN, new_y=YPos.NEXT)
     for title, lines in test.stages:
         pdf.ensure_space(10)
-        pdf.set_font(FONT, "I", 8.5)
+        pdf.set_font(FONT, "B", 8.5)
         pdf.cell(0, 4.6, (title), new_x=XPos.LMARGIN, new_y=YPos.NEXT)
         pdf.key_values(lines)
 
@@ -535,7 +535,7 @@ def _result_block(pdf: CertificatePDF, test: TestSection) -> None:
         u_text = (
             f"± {format_k(test.expanded_u_m_per_s)} m/s "
             f"({test.expanded_u_rel * 100:.1f} %, about 95 %; coverage factor {test.coverage}, "
-            "ν_eff the effective degrees of freedom, Welch-Satterthwaite)"
+            "ν_eff: effective degrees of freedom, Welch–Satterthwaite)"
         )
     reference = f"{test.reference_temperature_c:g}"
     pdf.set_fill_color(*SHADE)

@@ -18,6 +18,7 @@ from typing import Annotated, Any
 from fastapi import Depends, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
+from sqlalchemy.exc import SQLAlchemyError
 from starlette.datastructures import FormData
 
 from service import __version__
@@ -79,9 +80,12 @@ HtmxDep = Annotated[HtmxDetails, Depends(htmx_details)]
 def lab_identity() -> dict[str, str]:
     """The laboratory's name and accreditation for the page footer, read in a session of
     its own (pages render with whatever context they built; the footer is on all of them)."""
-    with session_scope() as session:
-        settings = lab_settings(session)
-        return {"name": settings.name, "accreditation": accreditation_text(settings)}
+    try:
+        with session_scope() as session:
+            settings = lab_settings(session)
+            return {"name": settings.name, "accreditation": accreditation_text(settings)}
+    except SQLAlchemyError:  # the database is away: the page (often the 503 page) goes on
+        return {"name": "", "accreditation": ""}
 
 
 def _make_templates() -> Jinja2Templates:

@@ -71,7 +71,7 @@ def test_pdf_text_shows_the_stored_numbers(session: Session, world: World) -> No
     for output in result["trials"]:
         assert written(output["k_ref_m_per_s"]) in text
     u = summary["expanded_u_rel"] * summary["k_ref_m_per_s"]
-    assert f"± {written(u)} m/s" in text
+    assert f"± {written(u)} m/s" in " ".join(text.split())  # justified lines space words out
     assert f"{result['specimen']['dry_density_kg_per_m3']:.0f} kg/m³" in text
     assert "E-" not in text  # never programmers' notation
     assert f"{result['specimen']['void_ratio']:.3f}" in text
@@ -85,8 +85,10 @@ def test_pdf_text_shows_the_stored_numbers(session: Session, world: World) -> No
     assert "Complies" in text
     assert certificate.number in text
     assert certificate.verification_code in text
-    assert "Page 1 of 2" in text
-    assert "Page 2 of 2" in text
+    pages = len(PdfReader(io.BytesIO(certificate.pdf)).pages)
+    assert 2 <= pages <= 3
+    for page in range(1, pages + 1):  # every page numbered "n of N"
+        assert f"Page {page} of {pages}" in text
     assert "licensed engineer" in text
     assert "field can differ" in text
     for name in ("Tam Ridley", "Ines Varga", "Olu Brand"):

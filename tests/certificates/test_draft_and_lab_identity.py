@@ -39,7 +39,7 @@ def test_draft_is_marked_unnumbered_unsigned_and_stores_nothing(
     pdf = draft_sample_certificate(session, world.sample.id, actor=world.manager)
     text = pdf_text(pdf)
     assert pdf.startswith(b"%PDF")
-    assert "DRAFT - not for use" in text
+    assert "DRAFT — not for use" in text
     assert "not signed" in text
     assert "given at issue" in text  # no certificate number
     assert "Verification code" not in text

@@ -264,7 +264,7 @@ def test_certificate_and_review_state_decision_rule_coverage_factor_and_dof(
     text = " ".join(certificate_text(session, lab, test).split())
     # ILAC-G8:09/2019 guarded acceptance, guard band w = U.
     assert "guarded acceptance (ILAC-G8:09/2019, guard band w = U)" in text
-    found = re.search(r"coverage factor k = (\d+\.\d\d), nu_eff = (\d+\.\d)", text)
+    found = re.search(r"coverage factor k = (\d+\.\d\d), ν_eff = (\d+\.\d)", text)
     assert found is not None, text
     k, nu = float(found.group(1)), float(found.group(2))
     # Four determinations whose scatter dominates the instruments' terms: ν_eff a little

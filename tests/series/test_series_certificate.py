@@ -12,6 +12,7 @@ from sqlmodel import Session
 from service.certificates.service import issue_project_certificate, issue_sample_certificate
 from service.series.service import MemberCreate, SeriesCreate, add_member, create_series
 from tests.certificates.arrange import World, build_world
+from tests.certificates.test_certificates import written
 from tests.factories import make_sample, make_test
 
 
@@ -50,6 +51,6 @@ def test_project_summary_shows_the_series(session: Session) -> None:
     # S of S1 by hand: 0.18 × 2.70 × 1760/(2700 − 1760) = 0.9100 (tests/engine/test_series.py D)
     assert "91.0" in text
     assert world.test.result is not None
-    assert f"{world.test.result['result']['k_ref_m_per_s']:.2E}" in text
-    assert "4.00E-09" not in text  # the uncertified test's k20 is not on the certificate
+    assert written(world.test.result["result"]["k_ref_m_per_s"]) in text
+    assert written(4.0e-9) not in text  # the uncertified test's k20 is not on the certificate
     assert "licensed practice" in text
