@@ -17,6 +17,7 @@ from service.errors import (
     Conflict,
     FieldProblem,
     InvalidInput,
+    Loc,
     NotFound,
     PermissionDenied,
     require_version,
@@ -77,11 +78,39 @@ class MappingRead(BaseModel):
     version: int
 
 
-def _kinds(stage: str) -> dict[str, Any]:
+class MappingMissing(Conflict):
+    """A logger file came for a test whose permeameter has no mapping for the stage."""
+
+
+def _readings(stage: str) -> dict[str, Any]:
     spec = stage_spec(stage)
     assert spec is not None
-    entries = {e.id: e for e in spec.group("readings").entries}
+    return {e.id: e for e in spec.group("readings").entries}
+
+
+def _kinds(stage: str) -> dict[str, Any]:
+    entries = _readings(stage)
     return {name: entries[name].kind for name in CHANNELS[stage]}
+
+
+def channel_entries(stage: str) -> list[Any]:
+    """The catalogue entries of the quantities a logger gives for the stage (label, kind)."""
+    entries = _readings(stage)
+    return [entries[name] for name in CHANNELS[stage]]
+
+
+def mapping_label(stage: str, loc: Loc) -> str:
+    """A mapping field in words: 'Time column · Heading', 'Volume change · Unit'."""
+    parts = [str(p) for p in loc if p != "body"]
+    if parts[:1] == ["channels"]:
+        parts = parts[1:]
+    if not parts:
+        return "Logger columns"
+    entries = _readings(stage) if stage in CHANNELS else {}
+    what = "Time column" if parts[0] == "time" else getattr(entries.get(parts[0]), "label", "")
+    what = what or f"Channel {parts[0]}"
+    rest = {"column": "Heading", "unit": "Unit", "datetime_format": "Unit"}
+    return f"{what} · {rest[parts[1]]}" if len(parts) > 1 and parts[1] in rest else what
 
 
 def _stage_of(stage: str) -> str:
@@ -90,45 +119,90 @@ def _stage_of(stage: str) -> str:
     return stage
 
 
-def save_mapping(
-    session: Session, apparatus_id: int, stage: str, data: MappingWrite, *, actor: User
-) -> LoggerMapping:
-    """Set or change how an apparatus's logger files are read for a stage."""
-    _stage_of(stage)
+def require_writer(actor: User) -> None:
+    """Who may set a logger mapping (the API and the page check the same)."""
     if actor.role not in WRITERS:
         raise PermissionDenied("logger mappings are set by technicians and lab managers")
-    if session.get(Apparatus, apparatus_id) is None:
-        raise NotFound(f"apparatus {apparatus_id} not found")
+
+
+def permeameter_of(session: Session, test_id: int) -> Apparatus | None:
+    """The flexible-wall permeameter a test uses (its logger's mapping is the one read)."""
+    return session.exec(
+        select(Apparatus)
+        .join(TestApparatus, col(TestApparatus.apparatus_id) == col(Apparatus.id))
+        .where(
+            TestApparatus.test_id == test_id,
+            Apparatus.kind == ApparatusKind.FLEXIBLE_WALL_PERMEAMETER,
+        )
+    ).first()
+
+
+def mapping_of(session: Session, apparatus_id: int, stage: str) -> LoggerMapping | None:
+    """The apparatus's mapping for the stage, if one was set."""
+    return session.exec(
+        select(LoggerMapping).where(
+            LoggerMapping.apparatus_id == apparatus_id, LoggerMapping.stage == stage
+        )
+    ).first()
+
+
+def _mapping_problems(stage: str, data: MappingWrite) -> list[FieldProblem]:
+    """What is wrong with a mapping before any file arrives: unknown or no quantities, and
+    (through the engine, on a header row of the mapped columns) a wrong unit, a time given
+    both ways, one column mapped twice."""
     unknown = [name for name in data.channels if name not in CHANNELS[stage]]
     if unknown:
-        raise InvalidInput(
-            problems=[
-                FieldProblem(
-                    ("channels", name),
-                    "is not a quantity a logger gives for this stage",
-                    name,
-                    ", ".join(CHANNELS[stage]),
-                    "unknown",
-                    f"Channel {name}",
-                )
-                for name in unknown
-            ]
-        )
+        return [
+            FieldProblem(
+                ("channels", name),
+                "is not a quantity a logger gives for this stage",
+                name,
+                ", ".join(CHANNELS[stage]),
+                "unknown",
+                f"Channel {name}",
+            )
+            for name in unknown
+        ]
+    if not data.channels:
+        return [
+            FieldProblem(
+                ("channels",),
+                "needs at least one quantity",
+                None,
+                "a column heading for at least one of the readings",
+                "missing",
+                "Logger columns",
+            )
+        ]
     mapping = data.model_dump(mode="json", exclude={"version"})
-    # A header row with the mapped columns, read through the engine: a wrong unit or a
-    # time given both ways is refused now, not at the first file.
     header = [mapping["time"]["column"], *(c["column"] for c in mapping["channels"].values())]
     try:
         reduction.logger_readings(header, [], mapping, _kinds(stage))
     except InvalidInput as exc:
         own = [p for p in exc.problems if p.loc and p.loc[0] == "mapping"]
-        if own:
-            raise InvalidInput(problems=[p.at(tuple(p.loc[1:])) for p in own]) from None
-    row = session.exec(
-        select(LoggerMapping).where(
-            LoggerMapping.apparatus_id == apparatus_id, LoggerMapping.stage == stage
-        )
-    ).first()
+        out = []
+        for p in own:
+            loc = tuple(p.loc[1:])
+            if loc and loc[0] != "time":
+                loc = ("channels", *loc)
+            out.append(p.at(loc, mapping_label(stage, loc)))
+        return out
+    return []
+
+
+def save_mapping(
+    session: Session, apparatus_id: int, stage: str, data: MappingWrite, *, actor: User
+) -> LoggerMapping:
+    """Set or change how an apparatus's logger files are read for a stage."""
+    _stage_of(stage)
+    require_writer(actor)
+    if session.get(Apparatus, apparatus_id) is None:
+        raise NotFound(f"apparatus {apparatus_id} not found")
+    problems = _mapping_problems(stage, data)
+    if problems:
+        raise InvalidInput(problems=problems)
+    mapping = data.model_dump(mode="json", exclude={"version"})
+    row = mapping_of(session, apparatus_id, stage)
     if row is None:
         row = LoggerMapping(
             apparatus_id=apparatus_id, stage=stage, mapping=mapping, recorded_by_id=actor.id
@@ -148,18 +222,10 @@ def save_mapping(
 
 def mapping_for_test(session: Session, test_id: int, stage: str) -> LoggerMapping:
     """The mapping of the flexible-wall permeameter the test uses, for the stage."""
-    found = session.exec(
-        select(LoggerMapping)
-        .join(TestApparatus, col(TestApparatus.apparatus_id) == col(LoggerMapping.apparatus_id))
-        .join(Apparatus, col(Apparatus.id) == col(LoggerMapping.apparatus_id))
-        .where(
-            TestApparatus.test_id == test_id,
-            LoggerMapping.stage == stage,
-            Apparatus.kind == ApparatusKind.FLEXIBLE_WALL_PERMEAMETER,
-        )
-    ).first()
+    permeameter = permeameter_of(session, test_id)
+    found = mapping_of(session, permeameter.id or 0, stage) if permeameter else None
     if found is None:
-        raise Conflict(
+        raise MappingMissing(
             f"test {test_id}: its permeameter has no logger mapping for {stage}; set one "
             "first (time column and channels, once per apparatus)"
         )

@@ -189,7 +189,7 @@ def _remap_rows(spec: StageSpec, values: Mapping[str, str]) -> dict[str, dict[in
     return out
 
 
-def _test_and_sample(session: Session, test_id: int, user: User) -> tuple[PermeabilityTest, Sample]:
+def load_test(session: Session, test_id: int, user: User) -> tuple[PermeabilityTest, Sample]:
     test = lab_tests.get_test(session, test_id, actor=user)
     sample = session.get(Sample, test.sample_id)
     assert sample is not None
@@ -225,12 +225,13 @@ def stages_context(session: Session, test: PermeabilityTest) -> dict[str, Any]:
 def _context(
     request: Request, session: Session, user: User, test_id: int, stage: str | None = None
 ) -> dict[str, Any]:
-    test, sample = _test_and_sample(session, test_id, user)
+    test, sample = load_test(session, test_id, user)
     rows = stages.stages_of(session, test.id or 0)
     spec = stage_spec(stage) if stage else None
     return layout_context(
         request,
         user,
+        **_logger_context(session, test, stage),
         test=test,
         sample=sample,
         needs_stages=stages.needs_stages(session, test),
@@ -249,8 +250,23 @@ def _context(
         plots=_plots(rows, stage) if stage else _plots(rows),
         next_stage=_next(stage),
         saved=request.query_params.get("saved") == "1",
-        takes_logger=stage in loggers.CHANNELS,
+        columns_saved=request.query_params.get("columns") == "1",
     )
+
+
+def _logger_context(session: Session, test: PermeabilityTest, stage: str | None) -> dict[str, Any]:
+    """The permeameter whose logger files the stage takes, and how they are read."""
+    if stage not in loggers.CHANNELS:
+        return {"takes_logger": False}
+    permeameter = loggers.permeameter_of(session, test.id or 0)
+    row = loggers.mapping_of(session, permeameter.id or 0, stage) if permeameter else None
+    return {
+        "takes_logger": True,
+        "logger_permeameter": permeameter,
+        "logger_mapping": row.mapping if row else None,
+        "logger_labels": {e.id: e.label for e in loggers.channel_entries(stage)},
+        "logger_missing": False,
+    }
 
 
 def _next(stage: str | None) -> str | None:
@@ -361,6 +377,8 @@ def import_logger_file(
         p.label if p.loc and p.loc[0] == "file" and p.label else p.msg for p in tried.problems
     ] or [tried.message]
     context["saved"] = False
+    if isinstance(tried.error, loggers.MappingMissing):
+        context.update(logger_missing=True, general=[])  # said with a link to set them up
     return render(
         request,
         "tests/stages/stage.html",

@@ -36,6 +36,7 @@ REQUESTERS = PLANNERS | {"reception"}  # request tests (lab_tests.permissions.RE
 # Test data is written by the assigned technician or a lab manager (lab_tests.service).
 WRITERS = frozenset({"technician", "lab_manager"})
 ADMIN = frozenset({"admin"})
+MAPPERS = frozenset({"technician", "lab_manager", "admin"})  # service.stages.loggers.WRITERS
 
 
 @dataclass(frozen=True)
@@ -135,9 +136,7 @@ ACCESS: dict[str, Access] = {
     "GET /api/v1/tests/{test_id}/stages": _owned(SIGNED_IN),
     "PUT /api/v1/tests/{test_id}/stages/{stage}": Access(WRITERS),
     "POST /api/v1/tests/{test_id}/stages/{stage}/logger": Access(WRITERS),
-    "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": Access(
-        frozenset({"technician", "lab_manager", "admin"})
-    ),
+    "PUT /api/v1/apparatus/{apparatus_id}/logger-mappings/{stage}": Access(MAPPERS),
     "GET /api/v1/tests/{test_id}/reduction": _owned(SIGNED_IN),
     "GET /api/v1/tests/{test_id}/recompute": _owned(SIGNED_IN),
     "POST /api/v1/tests/{test_id}/submit": Access(WRITERS),
@@ -223,6 +222,9 @@ ACCESS: dict[str, Access] = {
     "GET /tests/{test_id}/stages/{stage}": Access(STAFF),
     "POST /tests/{test_id}/stages/{stage}": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/stages/{stage}/logger": Access(WRITERS, form_first=True),
+    # a permeameter's logger columns (service.stages.loggers.WRITERS), from a stage page
+    "GET /tests/{test_id}/stages/{stage}/logger-columns": _staff_page(MAPPERS),
+    "POST /tests/{test_id}/stages/{stage}/logger-columns": _staff_page(MAPPERS),
     "POST /tests/{test_id}/trials/preview": Access(STAFF),
     "POST /tests/{test_id}/trials": Access(WRITERS, form_first=True),
     "POST /tests/{test_id}/trials/{trial_id}/exclude": Access(WRITERS),
@@ -482,6 +484,14 @@ def _bodies(proof: Proof) -> dict[str, Callable[[], Request]]:
             }
         },
         "POST /tests/{test_id}/stages/{stage}/logger": lambda: {"files": _csv("t,v\n1,0.1\n")},
+        "POST /tests/{test_id}/stages/{stage}/logger-columns": lambda: {
+            "data": {
+                "time.column": "t",
+                "time.unit": "min",
+                "c.volume_change.column": "v",
+                "c.volume_change.unit": "mL",
+            }
+        },
         "POST /tests/{test_id}/stages/{stage}": lambda: {
             "data": {
                 "e.diameter": "7.10",
