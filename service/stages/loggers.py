@@ -167,11 +167,11 @@ def _mapping_problems(stage: str, data: MappingWrite) -> list[FieldProblem]:
         return [
             FieldProblem(
                 ("channels",),
-                "needs at least one quantity",
+                "need the column of at least one reading",
                 None,
-                "a column heading for at least one of the readings",
+                "a column heading (or number) for at least one of the readings",
                 "missing",
-                "Logger columns",
+                "Readings",
             )
         ]
     mapping = data.model_dump(mode="json", exclude={"version"})

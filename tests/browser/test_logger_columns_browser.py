@@ -1,6 +1,7 @@
 """On a phone-sized viewport (390×844) a technician opens the consolidation stage, follows
-"Set up the logger columns for CELL-F1", picks the units, saves, and takes in a small CSV
-logger file; screenshots in test-artifacts/."""
+"Set up the logger columns for CELL-F1", is refused once (no reading's heading) with the time
+kept, picks the units, saves, and takes in a small CSV logger file; screenshots in
+test-artifacts/."""
 
 from __future__ import annotations
 
@@ -55,6 +56,14 @@ def test_setting_the_logger_columns_then_taking_in_a_file(
         assert box["height"] >= 44  # WCAG 2.1, SC 2.5.5 Target Size: 44 x 44 CSS px
         page.get_by_label("Time column · Heading").fill("Elapsed (h)")
         page.locator('[name="time.unit"]').select_option("h")
+        # No reading's heading yet: refused, the time as typed kept (htmx swaps the form).
+        page.get_by_test_id("save-columns").click()
+        page.get_by_test_id("columns-refused").wait_for()
+        assert "at least one" in page.get_by_test_id("columns-refused").inner_text()
+        assert page.get_by_label("Time column · Heading").input_value() == "Elapsed (h)"
+        assert page.locator('[name="time.unit"]').input_value() == "h"
+        shot("0-refused")
+        unit = page.locator('[name="c.volume_change.unit"]')
         page.get_by_label("Volume change · Heading").fill("Vol (cm3)")
         unit.select_option("cm**3")
         shot("1-form")
