@@ -186,7 +186,7 @@ def test_walk_receive_to_verified_certificate(
         wait_for_test(session, sample.id, lambda t: t.state == TestState.SUBMITTED, "submit")
 
         # 4. The manager, still signed in, approves, previews the draft and issues.
-        walk.click(page.get_by_role("navigation", name="Main").get_by_role("link", name="Home"))
+        walk.click(page.get_by_role("link", name="Seepline, home"))
         walk.click(page.get_by_role("link", name=re.compile(lab_id)))
         actions = page.get_by_test_id("review-actions")
         walk.type(actions.get_by_label("Your password"), DEMO_PASSWORDS[MANAGER][1])
