@@ -14,7 +14,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from typing import NamedTuple
 
 from service.engine.rules import FLEXIBLE_WALL, RIGID_WALL, Rule
@@ -92,6 +92,13 @@ class Check:
     limit_confirmed: bool | None = None
     kind: str = ""
     figures: tuple[Figure, ...] = ()
+
+
+def as_record(check: Check) -> dict[str, object]:
+    """Write a check as the stored result keeps it (JSON: its figures as lists)."""
+    record = asdict(check)
+    record["figures"] = [list(figure) for figure in check.figures]
+    return record
 
 
 def sci(value: float, digits: int = 3) -> str:
