@@ -5,7 +5,8 @@ ILAC-G8:09/2019 simple or guarded acceptance (docs/methods.md §9).
 
 from __future__ import annotations
 
-from service.engine.checks import FAIL, PASS, WARN, Check, Figure, distinct, not_applicable, quoted
+from service.engine.check_figures import Figure, distinct, quoted
+from service.engine.checks import FAIL, PASS, WARN, Check, not_applicable
 from service.engine.rules import GUARD_BAND
 
 

@@ -6,18 +6,8 @@ Advisory physics around the measured k (docs/methods.md §8.7, §8.10, §10.1); 
 
 from __future__ import annotations
 
-from service.engine.checks import (
-    PASS,
-    WARN,
-    Check,
-    judged,
-    k_text,
-    mm,
-    mm_text,
-    not_applicable,
-    pct,
-    quoted,
-)
+from service.engine.check_figures import k_text, mm, mm_text, pct, quoted
+from service.engine.checks import PASS, WARN, Check, judged, not_applicable
 from service.engine.rules import Rule
 
 
