@@ -11,7 +11,9 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Mapping
 from datetime import UTC, datetime
+from typing import Any
 from zoneinfo import ZoneInfo
 
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
@@ -110,6 +112,20 @@ def show_text(value: float | None, quantity: str, units: str | None = "si", digi
     converted = value * factor
     text = sci_text(converted, digits) if scientific else number(converted, digits)
     return f"{text} {label}"
+
+
+def check_text(check: Mapping[str, Any], units: str | None = "si") -> str:
+    """A check's message in the user's units: the engine writes it in SI and keeps each figure
+    it quotes as [text, SI value, quantity, digits] (`figures`); for a US-customary user each is
+    replaced by the same value shown as `show_text` shows it (71.0 mm -> 2.80 in). A message
+    without figures (one stored before they were kept) is shown as written."""
+    message = str(check.get("message") or "")
+    if system(units) == "si":
+        return message
+    for text, value, quantity, digits in check.get("figures") or ():
+        if quantity in DISPLAY and value is not None:
+            message = message.replace(text, show_text(value, quantity, units, digits))
+    return message
 
 
 def typed(text: str) -> str:

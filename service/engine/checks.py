@@ -13,8 +13,16 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
+from service.engine.check_figures import (
+    Figure,
+    k_text,
+    mm,
+    mm_text,
+    pct,
+    quoted,
+)
 from service.engine.rules import FLEXIBLE_WALL, RIGID_WALL, Rule
 from service.engine.uncertainty import student_t_quantile
 
@@ -23,7 +31,6 @@ WARN = "warn"
 FAIL = "fail"
 NOT_APPLICABLE = "not_applicable"
 
-_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 _COUNT_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six"}
 
 
@@ -46,6 +53,12 @@ class Check:
     limit_confirmed : bool or None
         Whether the laboratory confirmed the rule's limits (docs/methods.md §7.1); None when
         no rule of a standard was applied.
+    kind : str
+        The quantity ``measured`` and ``limit`` are (a key of the display table of
+        service/figures.py), both then in SI; empty for a ratio, a count or a temperature [°C].
+    figures : tuple of Figure
+        The figures with units quoted in ``message``, as values: the message is written in SI
+        and a page shows these in the reader's units.
     """
 
     id: str
@@ -55,54 +68,40 @@ class Check:
     message: str
     source: str
     limit_confirmed: bool | None = None
+    kind: str = ""
+    figures: tuple[Figure, ...] = ()
 
 
-def sci(value: float, digits: int = 3) -> str:
-    """Format a number in scientific notation for people: ``1.76 × 10⁻⁹`` (``digits`` figures)."""
-    mantissa, exponent = f"{value:.{digits - 1}e}".split("e")
-    power = int(exponent)
-    if power == 0:
-        return mantissa
-    return f"{mantissa} × 10{str(power).translate(_SUPERSCRIPT)}"
-
-
-def pct(fraction: float, decimals: int = 1, *, sign: bool = False) -> str:
-    """Format a fraction as a percentage for people: ``0.143`` → ``14.3 %`` (``−28.6 %``)."""
-    text = f"{fraction * 100:{'+' if sign else ''}.{decimals}f} %"
-    return text.replace("-", "−")
-
-
-def distinct(*values: float, digits: int = 3) -> list[str]:
-    """Format values with :func:`sci` to the fewest digits that tell apart those that differ.
-
-    At least ``digits`` significant figures; more until every pair of different values reads
-    differently (docs/methods.md §9).
-    """
-    for n in range(digits, 18):
-        shown = [sci(v, n) for v in values]
-        if all(
-            (shown[i] != shown[j]) or values[i] == values[j]
-            for i in range(len(values))
-            for j in range(i + 1, len(values))
-        ):
-            return shown
-    return [repr(v) for v in values]
+def as_record(check: Check) -> dict[str, object]:
+    """Write a check as the stored result keeps it (JSON: its figures as lists)."""
+    record = asdict(check)
+    record["figures"] = [list(figure) for figure in check.figures]
+    return record
 
 
 def _count(n: int) -> str:
     return _COUNT_WORDS.get(n, str(n))
 
 
-def not_applicable(check_id: str, message: str) -> Check:
+def not_applicable(check_id: str, message: str, figures: tuple[Figure, ...] = ()) -> Check:
     """Report a check that cannot be judged (no rule, or not enough entries)."""
-    return Check(check_id, NOT_APPLICABLE, None, None, message, "")
+    return Check(check_id, NOT_APPLICABLE, None, None, message, "", figures=figures)
 
 
 def judged(
-    rule: Rule, status: str, measured: float | None, limit: float | None, message: str
+    rule: Rule,
+    status: str,
+    measured: float | None,
+    limit: float | None,
+    message: str,
+    *,
+    kind: str = "",
+    figures: tuple[Figure, ...] = (),
 ) -> Check:
     """Report a check judged by ``rule``, with its source and confirmation."""
-    return Check(rule.id, status, measured, limit, message, rule.source, rule.confirmed)
+    return Check(
+        rule.id, status, measured, limit, message, rule.source, rule.confirmed, kind, figures
+    )
 
 
 def _has(rule: Rule, limit_id: str) -> bool:
@@ -165,22 +164,26 @@ def steady_state(
     if _has(rule, "band_low_k") and mean < rule.value("low_k"):
         band = rule.value("band_low_k")
     deviation = max(abs(k / mean - 1.0) for k in window)
+    shown_mean = k_text(mean)
+    figures = (quoted(shown_mean, mean, "k"),)
     if deviation <= band:
         return judged(
             rule,
             PASS,
             deviation,
             band,
-            f"The {what} lie within {pct(deviation, 1)} of their mean {sci(mean)} m/s "
+            f"The {what} lie within {pct(deviation, 1)} of their mean {shown_mean} "
             f"(limit ±{pct(band, 0)}).",
+            figures=figures,
         )
     return judged(
         rule,
         rule.failure,
         deviation,
         band,
-        f"One of the {what} is {pct(deviation, 1)} from their mean {sci(mean)} m/s, outside "
+        f"One of the {what} is {pct(deviation, 1)} from their mean {shown_mean}, outside "
         f"±{pct(band, 0)}: the test has not reached a steady state.",
+        figures=figures,
     )
 
 
@@ -366,7 +369,8 @@ def gradient_limit(k_ref_m_per_s: float, max_gradient: float, rule: Rule | None)
         max_gradient,
         limit,
         f"The largest gradient, {max_gradient:.3g}, exceeds the recommended {limit:g} for "
-        f"k = {sci(k_ref_m_per_s)} m/s{beyond}: consolidation or seepage forces may bias k.",
+        f"k = {k_text(k_ref_m_per_s)}{beyond}: consolidation or seepage forces may bias k.",
+        figures=(quoted(k_text(k_ref_m_per_s), k_ref_m_per_s, "k"),),
     )
 
 
@@ -508,21 +512,26 @@ def specimen_size(
             return judged(
                 rule,
                 rule.failure,
-                smallest * 1000,
-                floor * 1000,
-                f"The specimen's smallest dimension, {smallest * 1000:.1f} mm, is below "
-                f"{floor * 1000:g} mm.",
+                smallest,
+                floor,
+                f"The specimen's smallest dimension, {mm_text(smallest)}, is below "
+                f"{mm_text(floor, 'g')}.",
+                kind="small_length",
+                figures=(mm(smallest), mm(floor, "g")),
             )
     if max_particle_m is None:
         if not _has(rule, "min_dimension"):
             return not_applicable("specimen_size", "Needs the largest particle size.")
+        smallest, floor = min(diameter_m, length_m or diameter_m), rule.value("min_dimension")
         return judged(
             rule,
             PASS,
-            min(diameter_m, length_m or diameter_m) * 1000,
-            rule.value("min_dimension") * 1000,
-            f"Smallest dimension {min(diameter_m, length_m or diameter_m) * 1000:.1f} mm is at "
-            f"least {rule.value('min_dimension') * 1000:g} mm (largest particle not given).",
+            smallest,
+            floor,
+            f"Smallest dimension {mm_text(smallest)} is at least {mm_text(floor, 'g')} "
+            "(largest particle not given).",
+            kind="small_length",
+            figures=(mm(smallest), mm(floor, "g")),
         )
     ratio = diameter_m / max_particle_m
     need = rule.value("min_ratio")
@@ -559,28 +568,34 @@ def _size_table(
         return judged(
             rule,
             rule.failure,
-            max_particle_m * 1000,
-            largest * 1000,
-            f"Maximum particle size {max_particle_m * 1000:.1f} mm exceeds "
-            f"{largest * 1000:g} mm: remove and record the coarser particles before testing.",
+            max_particle_m,
+            largest,
+            f"Maximum particle size {mm_text(max_particle_m)} exceeds "
+            f"{mm_text(largest, 'g')}: remove and record the coarser particles before testing.",
+            kind="small_length",
+            figures=(mm(max_particle_m), mm(largest, "g")),
         )
     note = " (retained percentage not given: the stricter column assumed)" if assumed else ""
-    measured = diameter_m * 1000
+    sizes = (mm(diameter_m, ".0f"), mm(need, ".0f"))
     if diameter_m + 1e-12 >= need:
         return judged(
             rule,
             PASS,
-            measured,
-            need * 1000,
-            f"Permeameter diameter {measured:.0f} mm meets the {need * 1000:.0f} mm minimum{note}.",
+            diameter_m,
+            need,
+            f"Permeameter diameter {sizes[0].text} meets the {sizes[1].text} minimum{note}.",
+            kind="small_length",
+            figures=sizes,
         )
     return judged(
         rule,
         WARN if assumed else rule.failure,
-        measured,
-        need * 1000,
-        f"Permeameter diameter {measured:.0f} mm is below the {need * 1000:.0f} mm minimum for "
-        f"a {max_particle_m * 1000:.1f} mm maximum particle size{note}.",
+        diameter_m,
+        need,
+        f"Permeameter diameter {sizes[0].text} is below the {sizes[1].text} minimum for "
+        f"a {mm_text(max_particle_m)} maximum particle size{note}.",
+        kind="small_length",
+        figures=(*sizes, mm(max_particle_m)),
     )
 
 

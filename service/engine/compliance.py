@@ -5,7 +5,8 @@ ILAC-G8:09/2019 simple or guarded acceptance (docs/methods.md §9).
 
 from __future__ import annotations
 
-from service.engine.checks import FAIL, PASS, WARN, Check, distinct, not_applicable
+from service.engine.check_figures import Figure, distinct, quoted
+from service.engine.checks import FAIL, PASS, WARN, Check, not_applicable
 from service.engine.rules import GUARD_BAND
 
 
@@ -44,7 +45,8 @@ def specification(
     k = k_ref_m_per_s
     if decision_rule != GUARD_BAND:
         source = "ILAC-G8:09/2019, simple acceptance (w = 0)"
-        shown_k, shown_max = distinct(k, k_max_m_per_s)
+        shown_k, shown_max = (f"{text} m/s" for text in distinct(k, k_max_m_per_s))
+        figures = _figures((shown_k, k), (shown_max, k_max_m_per_s))
         if k <= k_max_m_per_s:
             note = ""
             if expanded_u_rel is not None and k * (1 + expanded_u_rel) > k_max_m_per_s:
@@ -54,16 +56,20 @@ def specification(
                 PASS,
                 k,
                 k_max_m_per_s,
-                f"{what} = {shown_k} m/s meets the limit of {shown_max} m/s.{note}",
+                f"{what} = {shown_k} meets the limit of {shown_max}.{note}",
                 source,
+                kind="k",
+                figures=figures,
             )
         return Check(
             "specification",
             FAIL,
             k,
             k_max_m_per_s,
-            f"{what} = {shown_k} m/s exceeds the limit of {shown_max} m/s.",
+            f"{what} = {shown_k} exceeds the limit of {shown_max}.",
             source,
+            kind="k",
+            figures=figures,
         )
     source = "ILAC-G8:09/2019, guarded acceptance (w = U)"
     if expanded_u_rel is None:
@@ -75,21 +81,25 @@ def specification(
             "Guarded acceptance needs the expanded uncertainty of k, and none could be "
             "computed: give the instruments' uncertainties.",
             source,
+            kind="k",
         )
     expanded = expanded_u_rel * k
     upper, lower = k + expanded, k - expanded
-    shown_upper, shown_lower, shown_max, shown_k, shown_u = distinct(
-        upper, lower, k_max_m_per_s, k, expanded
-    )
-    figures = f"({what} = {shown_k} m/s, U = {shown_u} m/s)"
+    values = (upper, lower, k_max_m_per_s, k, expanded)
+    texts = [f"{text} m/s" for text in distinct(*values)]
+    shown_upper, shown_lower, shown_max, shown_k, shown_u = texts
+    figures = _figures(*zip(texts, values, strict=True))
+    stated = f"({what} = {shown_k}, U = {shown_u})"
     if upper <= k_max_m_per_s:
         return Check(
             "specification",
             PASS,
             k,
             k_max_m_per_s,
-            f"k + U = {shown_upper} m/s is within the limit of {shown_max} m/s {figures}.",
+            f"k + U = {shown_upper} is within the limit of {shown_max} {stated}.",
             source,
+            kind="k",
+            figures=figures,
         )
     if lower > k_max_m_per_s:
         return Check(
@@ -97,15 +107,24 @@ def specification(
             FAIL,
             k,
             k_max_m_per_s,
-            f"k − U = {shown_lower} m/s exceeds the limit of {shown_max} m/s {figures}.",
+            f"k − U = {shown_lower} exceeds the limit of {shown_max} {stated}.",
             source,
+            kind="k",
+            figures=figures,
         )
     return Check(
         "specification",
         WARN,
         k,
         k_max_m_per_s,
-        f"The limit of {shown_max} m/s lies between k − U = {shown_lower} m/s and k + U = "
-        f"{shown_upper} m/s {figures}: compliance cannot be decided at this uncertainty.",
+        f"The limit of {shown_max} lies between k − U = {shown_lower} and k + U = "
+        f"{shown_upper} {stated}: compliance cannot be decided at this uncertainty.",
         source,
+        kind="k",
+        figures=figures,
     )
+
+
+def _figures(*pairs: tuple[str, float]) -> tuple[Figure, ...]:
+    """Keep the conductivities quoted in a message as values [m/s]."""
+    return tuple(quoted(text, value, "k") for text, value in pairs)

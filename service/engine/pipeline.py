@@ -746,6 +746,6 @@ def result_to_dict(res: ReductionResult) -> dict[str, Any]:
             "kozeny_carman_k_m_per_s": res.kozeny_carman_k_m_per_s,
         },
         "gradient_series": asdict(res.gradient_series) if res.gradient_series is not None else None,
-        "checks": [asdict(c) for c in res.checks],
+        "checks": [checks.as_record(c) for c in res.checks],
         "cautions": list(CAUTIONS),
     }

@@ -6,7 +6,8 @@ Advisory physics around the measured k (docs/methods.md §8.7, §8.10, §10.1); 
 
 from __future__ import annotations
 
-from service.engine.checks import PASS, WARN, Check, judged, not_applicable, pct, sci
+from service.engine.check_figures import k_text, mm, mm_text, pct, quoted
+from service.engine.checks import PASS, WARN, Check, judged, not_applicable
 from service.engine.rules import Rule
 
 
@@ -143,26 +144,32 @@ def hazen(k_ref_m_per_s: float, hazen_k_m_per_s: float | None, rule: Rule | None
     if rule is None:
         return not_applicable("hazen", "No Hazen rule is set.")
     if hazen_k_m_per_s is None:
-        low, high = rule.value("d10_min") * 1000, rule.value("d10_max") * 1000
+        low, high = rule.value("d10_min"), rule.value("d10_max")
         return not_applicable(
-            "hazen", f"Needs D10 between {low:g} mm and {high:g} mm (clean sands only)."
+            "hazen",
+            f"Needs D10 between {mm_text(low, 'g')} and {mm_text(high, 'g')} (clean sands only).",
+            (mm(low, "g"), mm(high, "g")),
         )
     ratio = k_ref_m_per_s / hazen_k_m_per_s
     low, high = rule.value("ratio_low"), rule.value("ratio_high")
     limit = high if ratio >= 1 else low
+    estimate = k_text(hazen_k_m_per_s)
+    figures = (quoted(estimate, hazen_k_m_per_s, "k"),)
     if low <= ratio <= high:
         return judged(
             rule,
             PASS,
             ratio,
             limit,
-            f"Measured k is {ratio:.3g} times the Hazen estimate {sci(hazen_k_m_per_s)} m/s.",
+            f"Measured k is {ratio:.3g} times the Hazen estimate {estimate}.",
+            figures=figures,
         )
     return judged(
         rule,
         rule.failure,
         ratio,
         limit,
-        f"Measured k is {ratio:.3g} times the Hazen estimate {sci(hazen_k_m_per_s)} m/s: "
+        f"Measured k is {ratio:.3g} times the Hazen estimate {estimate}: "
         "check the gradation, the specimen and the test (advisory only).",
+        figures=figures,
     )

@@ -30,6 +30,8 @@ from service.common import ApparatusKind
 from service.db import utcnow
 from service.deps import SessionDep
 from service.errors import PermissionDenied
+from service.web.entries import posted as posted_text
+from service.web.entries import register_form
 from service.web.htmx import PostedForm, htmx_details, redirect, render
 from service.web.pages import layout_context
 from service.web.queue import StaffUser
@@ -119,6 +121,9 @@ def _context(
         item=item,
         kinds=[(k.value, KIND_WORDS[k]) for k in ApparatusKind],
         labels=LABELS,
+        fields=register_form(
+            getattr(user, "display_units", "si"), item.kind if item else form.value("kind")
+        ),
     )
 
 
@@ -211,8 +216,10 @@ def edit_item(
 
 
 def _read_form(posted: FormData) -> ItemForm:
+    """The posted form as typed: each keypad field joined to its unit picker ('0.5' and
+    'cm**2' -> '0.5 cm**2'), as the API takes it."""
     values = {
-        name: str(posted.get(name, "")).strip()
+        name: posted_text(posted, name).strip()
         for name in (*TEXT_FIELDS, *DATE_FIELDS, "kind", "version")
     }
     values["is_active"] = "on" if posted.get("is_active") else ""

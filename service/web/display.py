@@ -9,6 +9,7 @@ from markupsafe import Markup
 from service.config import get_settings
 from service.figures import (
     at_least_decimals,
+    check_text,
     local_time,
     number,
     sci_text,
@@ -45,8 +46,8 @@ def lab_time(moment: datetime | None) -> str:
 
 
 def install(env_filters: dict[str, object]) -> None:
-    """Register `{{ value|show('k', units) }}`, `{{ 'k'|unit_label(units) }}`, `{{ text|typed }}`
-    and `{{ 'cm**2'|unit_symbol }}`."""
+    """Register `{{ value|show('k', units) }}`, `{{ 'k'|unit_label(units) }}`, `{{ text|typed }}`,
+    `{{ 'cm**2'|unit_symbol }}` and `{{ check|check_message(units) }}`."""
     env_filters["sci"] = sci
     env_filters["number"] = number
     env_filters["show"] = show
@@ -56,3 +57,4 @@ def install(env_filters: dict[str, object]) -> None:
     env_filters["typed_and_shown"] = typed_and_shown
     env_filters["at_least_decimals"] = at_least_decimals
     env_filters["lab_time"] = lab_time
+    env_filters["check_message"] = check_text

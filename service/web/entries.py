@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from service.figures import unit_symbol
@@ -104,6 +104,45 @@ def form_entry(
         unit=unit,
         unit_choices=entry.unit_choices,
     )
+
+
+# The register's geometry fields (service/apparatus) and the catalogue entry each one is.
+REGISTER_ENTRIES = {
+    "specimen_area": (Scope.SPECIMEN, "area"),
+    "port_spacing": (Scope.APPARATUS, "manometer_spacing"),
+    "standpipe_area": (Scope.APPARATUS, "standpipe_area"),
+    "headwater_area": (Scope.APPARATUS, "headwater_area"),
+    "tailwater_area": (Scope.APPARATUS, "tailwater_area"),
+}
+# A register item's reading resolution: the units its picker offers, and the one it starts
+# with for each kind of item (a balance reads grams, a caliper millimetres...).
+RESOLUTION_UNITS = ("g", "mg", "mm", "cm", "in", "K", "s", "kPa", "psi", "mL")
+RESOLUTION_UNIT_OF_KIND = {
+    "balance": "g",
+    "thermometer": "K",
+    "timer": "s",
+    "pressure_transducer": "kPa",
+    "burette": "mL",
+}
+
+
+def register_form(units: str | None = "si", kind: str = "") -> dict[str, FormEntry]:
+    """The apparatus register's typed fields as keypad fields with unit pickers: the geometry
+    from the catalogue (in the user's unit system), and the resolution."""
+    fields = {}
+    for name, (scope, entry_id) in REGISTER_ENTRIES.items():
+        entry = catalogue.entry(scope, entry_id)
+        fields[name] = replace(form_entry(entry, units=units), key=name)
+    fields["resolution"] = FormEntry(
+        "resolution",
+        "Resolution",
+        "0.1 g",
+        "the smallest reading step: balance 0.1 g, caliper 0.02 mm, thermometer 0.1 K, "
+        "timer 0.1 s, transducer 0.1 kPa, burette 0.1 mL, permeameter head scale 1 mm",
+        unit=RESOLUTION_UNIT_OF_KIND.get(kind, "mm"),
+        unit_choices=RESOLUTION_UNITS,
+    )
+    return fields
 
 
 def trial_form(

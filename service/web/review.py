@@ -53,15 +53,14 @@ DONE_NOTICES = {
     "corrected": "Correction ordered: this is the new revision, running again for the "
     "technician. The approved or issued revision stays readable until it is approved.",
 }
-# The unit each check's measured value and limit are in (the engine's checks carry bare
-# numbers; their messages name the unit). "%" values are fractions shown as per cent;
+# The unit of a check's measured value and limit when the check names no kind (a check with
+# a kind carries SI values shown in the user's units; "specification" here is for results
+# stored before checks named their kind). "%" values are fractions shown as per cent;
 # ratios, gradients, B-values and Reynolds numbers have no unit.
 CHECK_UNITS = {
     "steady_state": "%",
-    "specimen_size": "mm",
     "temperature_range": "°C",
     "specification": "m/s",
-    "hazen": "m/s",
 }
 # Audit fields whose values are machine records: listed as changed, values left out.
 OPAQUE_FIELDS = frozenset({"result", "default_uncertainties", "input_hash", "options"})

@@ -188,17 +188,32 @@ def test_manager_keeps_the_apparatus_register(
         page.wait_for_url(re.compile(r"/apparatus/new$"))
         page.get_by_label("Identifier").fill("PRM-R02")
         page.get_by_label("Kind").select_option("rigid_wall_permeameter")
-        page.get_by_label("Specimen area").fill("81.07 cm")  # a length, not an area
-        page.get_by_label("Manometer port spacing").fill("150 mm")
-        page.get_by_label("Resolution").fill("1 mm")
+        # Each figure in a decimal-keypad field with a unit picker beside it, big enough for
+        # a gloved finger (44 px: helper rules, touch targets).
+        for field in ("specimen_area", "port_spacing", "standpipe_area", "resolution"):
+            number = page.locator(f"#f-{field}")
+            assert number.get_attribute("inputmode") == "decimal", field
+            picker = page.locator(f"#f-{field}-unit")
+            box = picker.bounding_box()
+            assert box is not None, field
+            assert box["height"] >= 44, (field, box)
+            assert number.bounding_box()["height"] >= 44, field  # type: ignore[index]
+        page.get_by_label("Specimen area").fill("81.07 cm")  # a length typed, not an area
+        page.get_by_label("Manometer port spacing").fill("150")
+        page.locator("#f-port_spacing-unit").select_option("mm")
+        page.get_by_label("Resolution").fill("1")
+        page.locator("#f-resolution-unit").select_option("mm")
+        page.screenshot(path=str(artifacts / f"apparatus-keypad-{name}.png"), full_page=True)
         page.get_by_role("button", name="Add to the register").click()
         page.locator("#err-specimen_area").get_by_text("81.07 cm").wait_for()
-        assert page.get_by_label("Manometer port spacing").input_value() == "150 mm"
+        assert page.get_by_label("Manometer port spacing").input_value() == "150"
+        assert page.locator("#f-port_spacing-unit").input_value() == "mm"
         assert page.get_by_label("Identifier").input_value() == "PRM-R02"
         page.screenshot(path=str(artifacts / f"apparatus-refused-{name}.png"), full_page=True)
         check_basics(page)
 
-        page.get_by_label("Specimen area").fill("81.07 cm^2")
+        page.get_by_label("Specimen area").fill("81.07")
+        page.locator("#f-specimen_area-unit").select_option("cm**2")
         page.get_by_role("button", name="Add to the register").click()
         page.wait_for_url(re.compile(r"/apparatus\?saved=\d+"))
         assert "PRM-R02" in page.locator("tr[data-apparatus='PRM-R02']").inner_text()

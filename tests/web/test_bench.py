@@ -216,3 +216,22 @@ def test_bench_needs_sign_in(web_client: TestClient) -> None:
     response = web_client.get("/bench")
     assert response.status_code == 303
     assert response.headers["location"] == "/sign-in?next=/bench"
+
+
+def test_check_texts_follow_the_users_units(web_client: TestClient, session: Session) -> None:
+    # 1 ft = 0.3048 m exactly (international foot, 1959; NIST SP 811 (2008) B.8), 1 day = 86 400 s.
+    user = make_user(session, role=Role.TECHNICIAN)
+    user.display_units = "us"
+    session.add(user)
+    session.commit()
+    headers = {**sign_in_cookie(session, web_client, user), **HTMX}
+    data = {**FALLING_HEAD, "specification.k_max": "1e-7 m/s"}
+    response = web_client.post("/bench/preview", data=data, headers=headers)
+    assert response.status_code == 200
+    check = response.text.split('data-check="specification"')[1].split("</li>")[0]
+    assert "m/s" not in check
+    assert "ft/day" in check
+    # The limit, 1e-7 m/s, is quoted in ft/day: 1e-7 × 86 400 / 0.3048 = 0.0283 ft/day.
+    limit = re.findall(r"limit of ([\d.]+) ft/day", check)
+    assert limit
+    assert float(limit[0]) * 0.3048 / 86_400 == pytest.approx(1e-7, rel=5e-3)

@@ -26,6 +26,10 @@ NEW_PERMEAMETER = {
 }
 
 
+def _picker(text: str, name: str) -> str:
+    return text.split(f'id="f-{name}-unit"')[1].split("</select>")[0]
+
+
 def _item(session: Session, identifier: str) -> Apparatus | None:
     session.expire_all()
     return session.exec(select(Apparatus).where(Apparatus.identifier == identifier)).first()
@@ -87,12 +91,25 @@ def test_refused_item_keeps_everything_typed(
     session: Session, lab: Lab, web_client: TestClient
 ) -> None:
     csrf = signed_in(session, web_client, lab.manager)
-    typed = {**NEW_PERMEAMETER, "specimen_area": "81 cm", "calibration_due": "2025-01-01"}
+    typed = {
+        **NEW_PERMEAMETER,
+        "specimen_area": "81",  # a keypad figure and a wrong unit picked beside it
+        "specimen_area.unit": "cm",
+        "calibration_due": "2025-01-01",
+    }
     answer = web_client.post("/apparatus", data=typed, headers={**csrf, **HTMX})
     assert answer.status_code == 422
     assert answer.text.lstrip().startswith('<section class="panel apparatus-form"')
-    for name in ("identifier", "description", "specimen_area", "port_spacing", "resolution"):
+    for name in ("identifier", "description"):
         assert f'value="{typed[name]}"' in answer.text, name
+    # Each figure back in its keypad field, its unit chosen in the picker beside it.
+    for name, number, unit in (
+        ("specimen_area", "81", "cm"),
+        ("port_spacing", "100", "mm"),
+        ("resolution", "1", "mm"),
+    ):
+        assert f'name="{name}" type="text" value="{number}"' in answer.text, name
+        assert f'value="{unit}" selected' in _picker(answer.text, name), name
     assert 'value="2025-01-01"' in answer.text
     # The message sits beside the field that caused it.
     assert re.search(
@@ -111,7 +128,8 @@ def test_wrong_unit_is_named_beside_its_field(
     message = re.search(r'id="err-specimen_area"[^>]*>(.*?)</p>', answer.text, re.S)
     assert message is not None
     assert "81 cm" in message.group(1)
-    assert 'value="81 cm"' in answer.text
+    assert 'name="specimen_area" type="text" value="81"' in answer.text
+    assert 'value="cm" selected' in _picker(answer.text, "specimen_area")
 
 
 def test_duplicate_identifier(session: Session, lab: Lab, web_client: TestClient) -> None:
@@ -127,7 +145,8 @@ def test_edit_an_item(session: Session, lab: Lab, web_client: TestClient) -> Non
     csrf = signed_in(session, web_client, lab.manager)
     page = web_client.get(f"/apparatus/{lab.balance.id}/edit")
     assert page.status_code == 200
-    assert 'value="0.1 g"' in page.text
+    assert 'name="resolution" type="text" value="0.1"' in page.text
+    assert 'value="g" selected' in _picker(page.text, "resolution")
     answer = web_client.post(
         f"/apparatus/{lab.balance.id}",
         data={
@@ -181,3 +200,59 @@ def test_edit_without_csrf_is_refused(session: Session, lab: Lab, web_client: Te
     )
     assert answer.status_code == 403
     assert _item(session, "BAL-T1") is not None
+
+
+def test_geometry_fields_are_keypad_fields_with_unit_pickers(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    csrf = signed_in(session, web_client, lab.manager)
+    form = web_client.get("/apparatus/new").text
+    names = ("specimen_area", "port_spacing", "standpipe_area", "headwater_area")
+    for name in (*names, "tailwater_area", "resolution"):
+        field = re.search(rf'<input id="f-{name}" name="{name}"[^>]*>', form)
+        assert field is not None, name
+        assert 'inputmode="decimal"' in field.group(0), name
+        assert f'name="{name}.unit"' in form, name
+    # SI user: areas start in cm², the spacing in cm; a new balance's resolution in grams.
+    assert 'value="cm**2" selected>cm²' in _picker(form, "standpipe_area")
+    assert 'value="cm" selected' in _picker(form, "port_spacing")
+    assert 'value="g" selected' in _picker(form, "resolution")
+    # The number and the picked unit are stored as one typed text, as the API takes it.
+    data = {
+        **NEW_PERMEAMETER,
+        "identifier": "PRM-K1",
+        "kind": "flexible_wall_permeameter",
+        "specimen_area": "",
+        "port_spacing": "",
+        "standpipe_area": "0,283",  # a keypad with a decimal comma
+        "standpipe_area.unit": "cm**2",
+        "headwater_area": "0.110",
+        "headwater_area.unit": "in**2",
+        "resolution": "1",
+        "resolution.unit": "mm",
+    }
+    answer = web_client.post("/apparatus", data=data, headers=csrf)
+    assert answer.status_code == 303
+    item = _item(session, "PRM-K1")
+    assert item is not None
+    assert item.standpipe_area_text == "0.283 cm**2"
+    # 1 cm² = 1e-4 m²; 1 in² = 6.4516e-4 m² (1 in = 0.0254 m exactly; NIST SP 811 B.8)
+    assert item.standpipe_area_m2 == pytest.approx(0.283e-4, rel=1e-12)
+    assert item.headwater_area_m2 == pytest.approx(0.110 * 0.0254**2, rel=1e-12)
+    assert item.resolution_text == "1 mm"
+    # Editing shows the stored text split back into figure and unit.
+    edit = web_client.get(f"/apparatus/{item.id}/edit").text
+    assert 'name="headwater_area" type="text" value="0.110"' in edit
+    assert 'value="in**2" selected' in _picker(edit, "headwater_area")
+
+
+def test_us_customary_manager_starts_in_inches(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    lab.manager.display_units = "us"
+    session.add(lab.manager)
+    session.commit()
+    signed_in(session, web_client, lab.manager)
+    form = web_client.get("/apparatus/new").text
+    assert 'value="in**2" selected>in²' in _picker(form, "standpipe_area")
+    assert 'value="in" selected' in _picker(form, "port_spacing")

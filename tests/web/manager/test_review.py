@@ -438,3 +438,78 @@ def test_audit_list_reads_as_actions_in_words_and_lab_time(
     assert not re.search(r"\.\d{6}", audit)
     # One item per action: the fields saved together are listed under it.
     assert audit.count('class="audit-list__changes"') >= 1
+
+
+SUPERSCRIPT = str.maketrans("⁻⁰¹²³⁴⁵⁶⁷⁸⁹", "-0123456789")
+
+
+def _checks_of(page: str) -> dict[str, str]:
+    table = re.search(r'data-testid="review-checks".*?</table>', page, re.S)
+    assert table is not None
+    rows = re.findall(r'<tr data-check="([a-z_]+)">(.*?)</tr>', table.group(0), re.S)
+    return {check: " ".join(re.sub(r"<[^>]+>|&nbsp;", " ", row).split()) for check, row in rows}
+
+
+def _figures(text: str, unit: str) -> list[float]:
+    """Every figure followed by `unit` in a text ('2.02 × 10⁻¹⁰ m/s' -> 2.02e-10)."""
+    found = re.findall(rf"([\d.]+)(?: × 10([⁻⁰¹²³⁴⁵⁶⁷⁸⁹]+))? {re.escape(unit)}\b", text)
+    return [float(m) * 10 ** int(p.translate(SUPERSCRIPT) or "0") for m, p in found]
+
+
+def test_check_texts_are_in_the_users_units(
+    session: Session, lab: Lab, web_client: TestClient
+) -> None:
+    # Conversions by the exact definitions 1 ft = 0.3048 m and 1 in = 0.0254 m (international
+    # yard, 1959; NIST SP 811 (2008) Appendix B.8) and 1 day = 86 400 s.
+    test = new_test(session, lab)
+    test.standard = "ASTM D5084"  # its specimen-size rule has a smallest dimension (25 mm)
+    session.add(test)
+    session.commit()
+    assert test.id is not None
+    lab_tests.write_specimen(
+        session,
+        test.id,
+        SpecimenWrite(
+            preparation=Preparation.INTACT,
+            diameter="71.0 mm",
+            length="73.0 mm",
+            wet_mass="570.0 g",
+            water_content="22.0 %",
+            specific_gravity=2.70,
+        ),
+        actor=lab.technician,
+    )
+    for seq, k in enumerate((2.0e-10, 2.1e-10, 1.95e-10), start=1):
+        lab_tests.record_trial(
+            session,
+            test.id,
+            TrialCreate(**falling_head_entries(k)),
+            idempotency_key=f"units-{seq}",
+            actor=lab.technician,
+        )
+    session.commit()
+    signed_in(session, web_client, lab.reviewer)
+    si = _checks_of(web_client.get(f"/tests/{test.id}/review").text)
+    lab.reviewer.display_units = "us"
+    session.add(lab.reviewer)
+    session.commit()
+    us = _checks_of(web_client.get(f"/tests/{test.id}/review").text)
+
+    # SI: the limit check in m/s, the specimen size in mm (71.0 mm, at least 25 mm).
+    si_k = _figures(si["specification"], "m/s")
+    assert si_k
+    assert si_k[-1] == pytest.approx(1e-9)
+    assert "Smallest dimension 71.0 mm is at least 25 mm" in si["specimen_size"]
+    assert " in " not in si["specimen_size"]
+    assert "ft/day" not in si["specification"]
+    # US customary: the same figures in ft/day and inches, to the digits shown.
+    assert "m/s" not in us["specification"]
+    assert "m/s" not in us["steady_state"]
+    us_k = _figures(us["specification"], "ft/day")
+    assert len(us_k) == len(si_k)
+    for feet_per_day, metres_per_second in zip(us_k, si_k, strict=True):
+        assert feet_per_day * 0.3048 / 86_400 == pytest.approx(metres_per_second, rel=5e-3)
+    assert "mm" not in us["specimen_size"]
+    inches = _figures(us["specimen_size"], "in")
+    # measured, limit (table columns) then the two figures of the message
+    assert [x * 25.4 for x in inches] == pytest.approx([71.0, 25.0, 71.0, 25.0], rel=2e-2)

@@ -359,6 +359,21 @@ def test_preview_shows_k_k20_and_gradient_without_storing(lab: Lab) -> None:
     assert trials(lab) == []
 
 
+def test_preview_check_texts_follow_the_users_units(lab: Lab) -> None:
+    # 1 in = 25.4 mm exactly (international inch, 1959; NIST SP 811 (2008) B.8). Hazen's
+    # formula holds for D10 of 0.1 mm to 3 mm (the built-in rule), quoted in inches here.
+    lab.technician.display_units = "us"
+    lab.session.add(lab.technician)
+    lab.session.commit()
+    csrf = lab.sign_in(lab.technician)
+    save_specimen(lab, csrf)
+    text = post(lab, "/trials/preview", CV2_TRIAL, csrf).text
+    hazen = text.split('data-check="hazen"')[1].split("</li>")[0]
+    assert " mm" not in hazen
+    inches = [float(x) for x in re.findall(r"([\d.]+) in\b", hazen)]
+    assert [x * 25.4 for x in inches] == pytest.approx([0.1, 3.0], rel=3e-2)
+
+
 def test_preview_full_page_without_javascript(lab: Lab) -> None:
     csrf = lab.sign_in(lab.technician)
     save_specimen(lab, csrf)
