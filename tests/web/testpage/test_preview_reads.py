@@ -35,11 +35,13 @@ def statements(engine: sa.Engine) -> Iterator[list[str]]:
     def record(_conn: Any, _cursor: Any, statement: str, *_args: Any) -> None:
         sent.append(statement.strip().split(None, 1)[0].upper())
 
-    sa.event.listen(engine, "before_cursor_execute", record)
+    # Every engine: an earlier test in this process may have left the app on an engine of
+    # its own (the dropped-database tests build one), so listen on the class.
+    sa.event.listen(sa.engine.Engine, "before_cursor_execute", record)
     try:
         yield sent
     finally:
-        sa.event.remove(engine, "before_cursor_execute", record)
+        sa.event.remove(sa.engine.Engine, "before_cursor_execute", record)
 
 
 def _reads_and_writes(sent: list[str]) -> tuple[int, int]:
