@@ -58,6 +58,7 @@ from service.web.entries import (
 )
 from service.web.htmx import PostedForm, htmx_details, redirect, render
 from service.web.live_reduction import (
+    READING_ROWS,
     PageReduction,
     page_reduction,
     shown_reduction,
@@ -70,7 +71,6 @@ from service.web.refusals import Attempt, attempt, prefixed
 router = APIRouter(prefix="/tests", include_in_schema=False)
 
 PAGE = "tests/test.html"
-READING_ROWS = 8
 D5084 = "ASTM D5084"
 PREPARATIONS = tuple((p.value, p.value.capitalize()) for p in Preparation)
 PRESSURES = ("cell_pressure", "back_pressure", "effective_confining")

@@ -7,10 +7,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from fastapi import APIRouter
 from sqlmodel import Session
 
-from service.common import ApparatusKind, Preparation
 from service.errors import FieldProblem
 from service.lab_tests.models import PermeabilityTest
 from service.lab_tests.reduction import Reduction, reduce_stored, trial_notes
@@ -21,26 +19,7 @@ from service.web.entries import (
 )
 from service.web.refusals import beside, form_errors, prefixed
 
-router = APIRouter(prefix="/tests", include_in_schema=False)
-
-PAGE = "tests/test.html"
-READING_ROWS = 8
-D5084 = "ASTM D5084"
-PREPARATIONS = tuple((p.value, p.value.capitalize()) for p in Preparation)
-PRESSURES = ("cell_pressure", "back_pressure", "effective_confining")
-PICKER_KINDS: tuple[tuple[str, str, tuple[ApparatusKind, ...]], ...] = (
-    (
-        "permeameter",
-        "Permeameter",
-        (ApparatusKind.RIGID_WALL_PERMEAMETER, ApparatusKind.FLEXIBLE_WALL_PERMEAMETER),
-    ),
-    ("balance", "Balance", (ApparatusKind.BALANCE,)),
-    ("thermometer", "Thermometer", (ApparatusKind.THERMOMETER,)),
-    ("caliper", "Caliper", (ApparatusKind.CALIPER,)),
-    ("timer", "Timer", (ApparatusKind.TIMER,)),
-)
-PICKED_KINDS = frozenset(kind for _, _, kinds in PICKER_KINDS for kind in kinds)
-REGISTER_LIMIT = 200
+READING_ROWS = 8  # reading rows a falling-head trial form offers
 
 
 @dataclass

@@ -4,6 +4,7 @@ Never `playwright install`: the browser is /usr/bin/chromium (apt-get install -y
 
 from __future__ import annotations
 
+import re
 import socket
 import threading
 import time
@@ -13,6 +14,8 @@ from typing import Any
 
 import pytest
 import sqlalchemy as sa
+
+from service.demo import DEMO_PASSWORDS
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
@@ -100,3 +103,12 @@ def chromium() -> Iterator[Any]:
 def artifacts() -> Path:
     ARTIFACTS.mkdir(exist_ok=True)
     return ARTIFACTS
+
+
+def sign_in(page: Any, base_url: str, email: str, next_path: str) -> None:
+    """Sign a demo user in through the form and wait for the page asked for."""
+    page.goto(f"{base_url}/sign-in?next={next_path}")
+    page.get_by_label("Email address").fill(email)
+    page.get_by_label("Password").fill(DEMO_PASSWORDS[email][1])
+    page.get_by_role("button", name="Sign in").click()
+    page.wait_for_url(re.compile(re.escape(base_url + next_path)))

@@ -14,7 +14,7 @@ from sqlmodel import Session, col, select
 from service.common import TestState
 from service.demo import DEMO_PASSWORDS, load_demo
 from service.lab_tests.models import PermeabilityTest
-from tests.browser.conftest import PHONE, TABLET
+from tests.browser.conftest import PHONE, TABLET, sign_in
 
 pytestmark = pytest.mark.browser
 
@@ -47,14 +47,6 @@ def check_basics(page: Any) -> None:
     assert page.evaluate("document.documentElement.scrollWidth <= window.innerWidth")
     assert page.evaluate(UNLABELLED_JS) == []
     assert page.evaluate(SMALL_TARGETS_JS) == []
-
-
-def sign_in(page: Any, base_url: str, email: str, next_path: str) -> None:
-    page.goto(f"{base_url}/sign-in?next={next_path}")
-    page.get_by_label("Email address").fill(email)
-    page.get_by_label("Password").fill(DEMO_PASSWORDS[email][1])
-    page.get_by_role("button", name="Sign in").click()
-    page.wait_for_url(re.compile(re.escape(base_url + next_path)))
 
 
 @pytest.mark.parametrize(("viewport", "name"), [(TABLET, "tablet"), (PHONE, "phone")])

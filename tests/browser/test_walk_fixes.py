@@ -14,8 +14,8 @@ from sqlmodel import Session, col, select
 
 from service.certificates.models import Certificate
 from service.common import OrganisationKind, Role
-from service.demo import DEMO_PASSWORDS, load_demo
-from tests.browser.conftest import PHONE, TABLET
+from service.demo import load_demo
+from tests.browser.conftest import PHONE, TABLET, sign_in
 from tests.factories import make_location, make_organisation, make_project, make_user
 from tests.web.manager.conftest import PASSWORD, Lab, lab, submitted_test
 
@@ -42,14 +42,6 @@ def height_of(page: Any, selector: str) -> float:
     box = page.locator(selector).first.bounding_box()
     assert box is not None, selector
     return float(box["height"])
-
-
-def sign_in(page: Any, base_url: str, email: str, next_path: str) -> None:
-    page.goto(f"{base_url}/sign-in?next={next_path}")
-    page.get_by_label("Email address").fill(email)
-    page.get_by_label("Password").fill(DEMO_PASSWORDS[email][1])
-    page.get_by_role("button", name="Sign in").click()
-    page.wait_for_url(re.compile(re.escape(base_url + next_path)))
 
 
 @pytest.mark.parametrize(("viewport", "name"), [(TABLET, "tablet"), (WIDE, "wide")])
